@@ -1,0 +1,75 @@
+// Command godwit is the sensor-fusion runtime: the daemon, the bench replay,
+// the recorder, the simulator, the demo and the configuration checker in one
+// binary. Run `godwit --help` for the commands.
+package main
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"strings"
+
+	"github.com/spf13/cobra"
+)
+
+// Exit codes of DESIGN.md: 0 ok, 2 bad usage or config, 1 runtime failure.
+const (
+	exitOK      = 0
+	exitRuntime = 1
+	exitUsage   = 2
+)
+
+// usageError marks errors that are the caller's to fix (exit 2).
+type usageError struct{ err error }
+
+func (e usageError) Error() string { return e.err.Error() }
+func (e usageError) Unwrap() error { return e.err }
+
+func usagef(format string, a ...any) error { return usageError{fmt.Errorf(format, a...)} }
+
+// usageArgs makes a cobra argument check report bad usage (exit 2).
+func usageArgs(check cobra.PositionalArgs) cobra.PositionalArgs {
+	return func(cmd *cobra.Command, args []string) error {
+		if err := check(cmd, args); err != nil {
+			return usageError{err}
+		}
+		return nil
+	}
+}
+
+func newRootCmd() *cobra.Command {
+	root := &cobra.Command{
+		Use:   "godwit",
+		Short: "Sensor-fusion runtime: MQTT in, fused tracks with uncertainty out",
+		Long: `godwit takes time-stamped sensor measurements over MQTT, aligns them in time,
+runs square-root filters and a multi-target tracker, and publishes fused tracks,
+health and latency. The same binary replays recordings deterministically on a bench.
+
+godwit is not a certified safety component; see the README.`,
+		SilenceUsage:  true,
+		SilenceErrors: true,
+	}
+	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error { return usageError{err} })
+	root.AddCommand(newVersionCmd())
+	return root
+}
+
+func main() {
+	os.Exit(run(os.Args[1:]))
+}
+
+func run(args []string) int {
+	root := newRootCmd()
+	root.SetArgs(args)
+	err := root.Execute()
+	if err == nil {
+		return exitOK
+	}
+	fmt.Fprintln(os.Stderr, "godwit:", err)
+	var ue usageError
+	// cobra reports an unknown sub-command as a plain error; it is bad usage too.
+	if errors.As(err, &ue) || strings.HasPrefix(err.Error(), "unknown command") {
+		return exitUsage
+	}
+	return exitRuntime
+}
