@@ -1,0 +1,362 @@
+package filters
+
+import (
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas64"
+)
+
+// UTParams are the scaled unscented transform's parameters (Wan & van der
+// Merwe 2000): Alpha spreads the sigma points, Beta folds in prior knowledge
+// of the distribution (2 is optimal for a Gaussian), Kappa is the secondary
+// scaling. λ = α²(n+κ) − n must keep n+λ > 0.
+type UTParams struct {
+	Alpha, Beta, Kappa float64
+}
+
+// DefaultUTParams are α = 1, β = 2, κ = 0: sigma points at ±√n standard
+// deviations, zeroth weights W_m0 = 0, W_c0 = 2. The often quoted α = 10⁻³
+// makes W_c0 ≈ −10⁶, and the zeroth-point downdate then cancels about six
+// digits; with tracking state dimensions (n ≤ 6) α = 1 keeps the points at a
+// sensible spread and every weight of moderate size.
+func DefaultUTParams() UTParams { return UTParams{Alpha: 1, Beta: 2, Kappa: 0} }
+
+// utWeights are the scaled sigma-point weights (Wan & van der Merwe 2000,
+// eq. 15): W_m0 = λ/(n+λ), W_c0 = W_m0 + 1 − α² + β, W_i = 1/(2(n+λ)).
+type utWeights struct {
+	gamma, wm0, wc0, wi float64
+}
+
+func newUTWeights(n int, p UTParams) (utWeights, error) {
+	if !(p.Alpha > 0) || math.IsInf(p.Alpha, 0) || math.IsNaN(p.Beta) || math.IsInf(p.Beta, 0) ||
+		math.IsNaN(p.Kappa) || math.IsInf(p.Kappa, 0) {
+		return utWeights{}, fmt.Errorf("%w: unscented parameters %+v", ErrBadParameter, p)
+	}
+	lambda := p.Alpha*p.Alpha*(float64(n)+p.Kappa) - float64(n)
+	nl := float64(n) + lambda
+	if !(nl > 0) {
+		return utWeights{}, fmt.Errorf("%w: unscented parameters %+v give n+λ=%g, want > 0", ErrBadParameter, p, nl)
+	}
+	wm0 := lambda / nl
+	return utWeights{
+		gamma: math.Sqrt(nl),
+		wm0:   wm0,
+		wc0:   wm0 + 1 - p.Alpha*p.Alpha + p.Beta,
+		wi:    1 / (2 * nl),
+	}, nil
+}
+
+// SRUKF is the square-root unscented Kalman filter of van der Merwe & Wan
+// 2001 (Algorithm 3.1, additive noise) with the scaled sigma points of Wan &
+// van der Merwe 2000. It keeps x and lower-triangular S, never P.
+//
+// Predict and Prepare both form S (resp. Sy) as the LQ triangularisation of
+// [√W_i·(Y_i − ȳ), i=1..2n | noise square root], followed by a Cholesky
+// rank-one update with √|W_c0|·(Y_0 − ȳ) when W_c0 > 0, or a downdate when
+// W_c0 < 0; a downdate that would lose positive definiteness is an error and
+// the state is left unchanged. Means and deviations are angle-safe: residuals
+// are taken relative to the zeroth sigma point with the model's Residual and
+// the mean is wrapped with Normalize.
+//
+// The update uses the normalised gain K̄ = P_xz·Sy⁻ᵀ: x⁺ = x + K̄·Sy⁻¹·(z ⊖ ẑ)
+// and S⁺ comes from m rank-one downdates of S by the columns of K̄ (= K·Sy
+// in the paper's notation).
+type SRUKF struct {
+	core
+	innovation
+	w utWeights
+
+	// Predict workspace.
+	X, Y    []float64 // (2n+1)×n sigma points, one per row
+	d, v    []float64 // n
+	xp, G   []float64
+	pre, Sp []float64 // n×3n pre-array, n×n
+	triP    *TriaWork
+	c, s    []float64 // downdate rotations, n
+
+	// Update workspace, sized for mCap.
+	Z, Dz, diff, preU []float64
+	Spost, col        []float64
+	triU              *TriaWork
+	cm, sm            []float64 // downdate rotations, m
+}
+
+// NewSRUKF returns a square-root UKF for the motion model f with the given
+// unscented parameters (DefaultUTParams when in doubt). Call Init before use.
+func NewSRUKF(f MotionModel, p UTParams) (*SRUKF, error) {
+	c, err := newCore(f)
+	if err != nil {
+		return nil, err
+	}
+	n := c.n
+	w, err := newUTWeights(n, p)
+	if err != nil {
+		return nil, err
+	}
+	np := 2*n + 1
+	u := &SRUKF{
+		core:  c,
+		w:     w,
+		X:     make([]float64, np*n),
+		Y:     make([]float64, np*n),
+		d:     make([]float64, n),
+		v:     make([]float64, n),
+		xp:    make([]float64, n),
+		G:     make([]float64, n*n),
+		pre:   make([]float64, n*3*n),
+		Sp:    make([]float64, n*n),
+		triP:  NewTriaWork(n, 3*n),
+		c:     make([]float64, n),
+		s:     make([]float64, n),
+		Spost: make([]float64, n*n),
+		col:   make([]float64, n),
+	}
+	u.growMeas(3)
+	return u, nil
+}
+
+func (u *SRUKF) growMeas(m int) {
+	n := u.n
+	if !u.innovation.grow(n, m) {
+		return
+	}
+	np := 2*n + 1
+	u.Z = make([]float64, np*m)
+	u.Dz = make([]float64, np*m)
+	u.diff = make([]float64, n*m)
+	u.preU = make([]float64, m*(2*n+m))
+	u.triU = NewTriaWork(m, 2*n+m)
+	u.cm = make([]float64, m)
+	u.sm = make([]float64, m)
+}
+
+// sigmaPoints writes X_0 = x, X_i = x + γ·S_i, X_{n+i} = x − γ·S_i (S_i the
+// i-th column of S) into u.X.
+func (u *SRUKF) sigmaPoints() {
+	n, g := u.n, u.w.gamma
+	copy(u.X[:n], u.x)
+	for i := 0; i < n; i++ {
+		plus := u.X[(1+i)*n : (2+i)*n]
+		minus := u.X[(1+n+i)*n : (2+n+i)*n]
+		for r := 0; r < n; r++ {
+			d := g * u.S[r*n+i]
+			plus[r] = u.x[r] + d
+			minus[r] = u.x[r] - d
+		}
+	}
+}
+
+// rankOne applies the zeroth-point term W_c0·v·vᵀ to the factor L (k×k):
+// an update for W_c0 > 0, a downdate for W_c0 < 0. v is overwritten.
+func (u *SRUKF) rankOne(L []float64, k int, v, c, s []float64) error {
+	wc0 := u.w.wc0
+	if wc0 == 0 {
+		return nil
+	}
+	sw := math.Sqrt(math.Abs(wc0))
+	for i := range v[:k] {
+		v[i] *= sw
+	}
+	if wc0 > 0 {
+		cholUpdate(L, k, v)
+		return nil
+	}
+	if !cholDowndate(L, k, v, c, s) {
+		return fmt.Errorf("%w: downdate for the negative zeroth weight W_c0=%g", ErrNotPosDef, wc0)
+	}
+	return nil
+}
+
+// Predict moves the state forward by dt ≥ 0 seconds through the unscented
+// transform of the motion model.
+func (u *SRUKF) Predict(dt float64) error {
+	if err := checkDt(dt); err != nil {
+		return err
+	}
+	n, np := u.n, 2*u.n+1
+	u.sigmaPoints()
+	for i := 0; i < np; i++ {
+		u.f.Propagate(u.Y[i*n:(i+1)*n], u.X[i*n:(i+1)*n], dt)
+	}
+	u.f.NoiseFactor(u.G, u.x, dt)
+	if !finite(u.Y[:np*n]) || !finite(u.G) {
+		return fmt.Errorf("%w: motion model output at dt=%g", ErrNonFinite, dt)
+	}
+	// Mean relative to the zeroth point: Σ W_m = 1, so x̄ = Y_0 + Σ W_i (Y_i ⊖ Y_0).
+	y0 := u.Y[:n]
+	copy(u.xp, y0)
+	for i := 1; i < np; i++ {
+		u.f.Residual(u.d, u.Y[i*n:(i+1)*n], y0)
+		for r := 0; r < n; r++ {
+			u.xp[r] += u.w.wi * u.d[r]
+		}
+	}
+	u.f.Normalize(u.xp)
+	sw := math.Sqrt(u.w.wi)
+	k := 3 * n
+	for i := 1; i < np; i++ {
+		u.f.Residual(u.d, u.Y[i*n:(i+1)*n], u.xp)
+		for r := 0; r < n; r++ {
+			u.pre[r*k+i-1] = sw * u.d[r]
+		}
+	}
+	for r := 0; r < n; r++ {
+		copy(u.pre[r*k+2*n:r*k+3*n], u.G[r*n:(r+1)*n])
+	}
+	if err := Triangularize(u.Sp, u.pre, n, k, u.triP); err != nil {
+		return fmt.Errorf("predict: %w", err)
+	}
+	u.f.Residual(u.v, y0, u.xp)
+	if err := u.rankOne(u.Sp, n, u.v, u.c, u.s); err != nil {
+		return fmt.Errorf("predict: %w", err)
+	}
+	if err := CheckSqrt(u.Sp, n); err != nil {
+		return fmt.Errorf("predict: %w", err)
+	}
+	copy(u.x, u.xp)
+	copy(u.S, u.Sp)
+	u.prepared = false
+	return nil
+}
+
+// Prepare passes fresh sigma points of the current state through h and
+// computes ẑ, Sy and K̄ for the NIS and Update calls that follow. Rs is the
+// m×m lower-triangular square root of R.
+func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
+	u.prepared = false
+	m, err := checkMeas(h, Rs)
+	if err != nil {
+		return err
+	}
+	u.growMeas(m)
+	n, np := u.n, 2*u.n+1
+	u.sigmaPoints()
+	Z := u.Z[:np*m]
+	for i := 0; i < np; i++ {
+		h.Predict(Z[i*m:(i+1)*m], u.X[i*n:(i+1)*n])
+	}
+	if !finite(Z) {
+		return fmt.Errorf("%w: measurement model output", ErrNonFinite)
+	}
+	zhat, e, Dz := u.zhat[:m], u.e[:m], u.Dz[:np*m]
+	z0 := Z[:m]
+	copy(zhat, z0)
+	for i := 1; i < np; i++ {
+		h.Residual(e, Z[i*m:(i+1)*m], z0)
+		for r := 0; r < m; r++ {
+			zhat[r] += u.w.wi * e[r]
+		}
+	}
+	for i := 0; i < np; i++ {
+		h.Residual(Dz[i*m:(i+1)*m], Z[i*m:(i+1)*m], zhat)
+	}
+	k := 2*n + m
+	pre := u.preU[:m*k]
+	sw := math.Sqrt(u.w.wi)
+	for i := 1; i < np; i++ {
+		for r := 0; r < m; r++ {
+			pre[r*k+i-1] = sw * Dz[i*m+r]
+		}
+	}
+	for r := 0; r < m; r++ {
+		copy(pre[r*k+2*n:r*k+k], Rs[r*m:(r+1)*m])
+	}
+	Sy := u.Sy[:m*m]
+	if err := Triangularize(Sy, pre, m, k, u.triU); err != nil {
+		return fmt.Errorf("update: %w", err)
+	}
+	copy(e, Dz[:m])
+	if err := u.rankOne(Sy, m, e, u.cm, u.sm); err != nil {
+		return fmt.Errorf("update: %w", err)
+	}
+	if err := CheckSqrt(Sy, m); err != nil {
+		return fmt.Errorf("update: %w", err)
+	}
+	// P_xz = Σ W_i (X_i − x)(Z_i − ẑ)ᵀ with X_{i}−x = ±γ·S_i, and the zeroth
+	// term vanishes: P_xz = W_i·γ·S·(Dz_{1..n} − Dz_{n+1..2n}).
+	diff := u.diff[:n*m]
+	for j := 0; j < n; j++ {
+		for r := 0; r < m; r++ {
+			diff[j*m+r] = Dz[(1+j)*m+r] - Dz[(1+n+j)*m+r]
+		}
+	}
+	Kbar := u.Kbar[:n*m]
+	blas64.Gemm(blas.NoTrans, blas.NoTrans, u.w.wi*u.w.gamma,
+		blas64.General{Rows: n, Cols: n, Stride: n, Data: u.S},
+		blas64.General{Rows: n, Cols: m, Stride: m, Data: diff},
+		0, blas64.General{Rows: n, Cols: m, Stride: m, Data: Kbar})
+	// K̄ = P_xz·Sy⁻ᵀ.
+	blas64.Trsm(blas.Right, blas.Trans, 1,
+		blas64.Triangular{Uplo: blas.Lower, Diag: blas.NonUnit, N: m, Stride: m, Data: Sy},
+		blas64.General{Rows: n, Cols: m, Stride: m, Data: Kbar})
+	if !finite(Kbar) {
+		return fmt.Errorf("%w: gain", ErrNonFinite)
+	}
+	u.h, u.m, u.prepared = h, m, true
+	return nil
+}
+
+// NIS returns (z ⊖ ẑ)ᵀ·P_zz⁻¹·(z ⊖ ẑ) against the prepared prediction, +Inf
+// when z is unusable or nothing is prepared.
+func (u *SRUKF) NIS(z []float64) float64 { return u.whiten(z) }
+
+// Update corrects the state with z and returns its NIS. The posterior
+// square root comes from m downdates of S by the columns of K̄; if one fails
+// the state is unchanged and an error returned.
+func (u *SRUKF) Update(z []float64) (float64, error) {
+	if !u.prepared {
+		return 0, ErrNotPrepared
+	}
+	if len(z) != u.m {
+		return 0, fmt.Errorf("%w: z has %d entries, measurement needs %d", ErrDimension, len(z), u.m)
+	}
+	nis := u.whiten(z)
+	if math.IsInf(nis, 1) {
+		return nis, fmt.Errorf("%w: z or its innovation", ErrNonFinite)
+	}
+	if !u.correctMean(u.f, u.x) {
+		return nis, fmt.Errorf("%w: corrected mean", ErrNonFinite)
+	}
+	n, m := u.n, u.m
+	copy(u.Spost, u.S)
+	for j := 0; j < m; j++ {
+		for r := 0; r < n; r++ {
+			u.col[r] = u.Kbar[r*m+j]
+		}
+		if !cholDowndate(u.Spost, n, u.col, u.c, u.s) {
+			return nis, fmt.Errorf("%w: posterior downdate %d of %d", ErrNotPosDef, j+1, m)
+		}
+	}
+	copy(u.x, u.xnew)
+	copy(u.S, u.Spost)
+	u.prepared = false
+	return nis, nil
+}
+
+// CopyFrom makes u an exact copy of src (a *SRUKF of the same dimension and
+// unscented parameters).
+func (u *SRUKF) CopyFrom(src Filter) error {
+	o, ok := src.(*SRUKF)
+	if !ok {
+		return fmt.Errorf("%w: CopyFrom %T into *SRUKF", ErrBadParameter, src)
+	}
+	if o.n != u.n {
+		return fmt.Errorf("%w: CopyFrom dimension %d into %d", ErrDimension, o.n, u.n)
+	}
+	if o == u {
+		return nil
+	}
+	u.f = o.f
+	u.w = o.w
+	copy(u.x, o.x)
+	copy(u.S, o.S)
+	if o.prepared {
+		u.growMeas(o.m)
+	}
+	u.innovation.copyFrom(&o.innovation, u.n)
+	return nil
+}
+
+var _ Filter = (*SRUKF)(nil)
