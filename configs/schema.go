@@ -33,6 +33,10 @@ type Broker struct {
 	Username     string `yaml:"username"`
 	PasswordFile string `yaml:"password_file"`
 	TLS          TLS    `yaml:"tls"`
+	// PersistentSession asks the broker to keep the session (subscriptions
+	// and queued QoS>0 messages) across reconnects: MQTT CleanSession false
+	// with the stable client_id. Extension of the v1 schema; default false.
+	PersistentSession bool `yaml:"persistent_session"`
 }
 
 // TLS holds PEM file paths; empty CA means the system roots.
@@ -123,4 +127,8 @@ type Health struct {
 type Limits struct {
 	MaxPayloadBytes int `yaml:"max_payload_bytes"`
 	QueueLength     int `yaml:"queue_length"`
+	// TimeWindowMS is the plausible window for a measurement's t_ns judged
+	// against its arrival time: |arrival − t_ns| above it is rejected as
+	// time_implausible. Default 10000 ms.
+	TimeWindowMS float64 `yaml:"time_window_ms"`
 }

@@ -1,0 +1,371 @@
+package configs
+
+import (
+	"fmt"
+	"math"
+	"reflect"
+	"sort"
+	"strconv"
+	"strings"
+
+	"gopkg.in/yaml.v3"
+)
+
+// maxNodes bounds the work of one decode. Aliases can make a small file
+// expand exponentially ("billion laughs"); no honest configuration comes
+// near this many values.
+const maxNodes = 100000
+
+// decoder walks a yaml.Node tree into a Config by reflection over the yaml
+// struct tags. Unlike yaml.Node.Decode it keeps going after a problem, so
+// every error in the file is reported at once, and it remembers which keys
+// were given (for defaults) and where (for validation messages).
+type decoder struct {
+	file   string
+	errs   []*Error
+	lines  map[string]int  // field path -> line of its value
+	set    map[string]bool // field paths given in the file (non-null)
+	budget int
+	over   bool
+}
+
+func newDecoder(file string) *decoder {
+	return &decoder{
+		file:   file,
+		lines:  map[string]int{},
+		set:    map[string]bool{},
+		budget: maxNodes,
+	}
+}
+
+func (d *decoder) errorf(line int, path, format string, args ...any) {
+	d.errs = append(d.errs, &Error{File: d.file, Line: line, Path: path, Msg: fmt.Sprintf(format, args...)})
+}
+
+// resolve follows aliases and charges the node budget; it returns nil once
+// the budget is spent.
+func (d *decoder) resolve(n *yaml.Node) *yaml.Node {
+	for hops := 0; n != nil && n.Kind == yaml.AliasNode; hops++ {
+		if hops > 100 {
+			return nil
+		}
+		n = n.Alias
+	}
+	d.budget--
+	if d.budget < 0 {
+		if !d.over {
+			d.over = true
+			d.errorf(0, "", "more than %d YAML values (alias expansion?); refusing to decode", maxNodes)
+		}
+		return nil
+	}
+	return n
+}
+
+func isNull(n *yaml.Node) bool {
+	return n.Kind == yaml.ScalarNode && n.Tag == "!!null"
+}
+
+func describe(n *yaml.Node) string {
+	switch n.Kind {
+	case yaml.MappingNode:
+		return "a mapping"
+	case yaml.SequenceNode:
+		return "a list"
+	case yaml.ScalarNode:
+		if n.Tag == "!!str" {
+			return strconv.Quote(n.Value)
+		}
+		return n.Value
+	}
+	return "an unsupported YAML node"
+}
+
+func join(path, key string) string {
+	if path == "" {
+		return key
+	}
+	return path + "." + key
+}
+
+// decode stores n into v, reporting problems under path.
+func (d *decoder) decode(n *yaml.Node, v reflect.Value, path string) {
+	n = d.resolve(n)
+	if n == nil {
+		return
+	}
+	d.lines[path] = n.Line
+	if isNull(n) {
+		return // an empty value means "not given": the default applies
+	}
+	switch v.Kind() {
+	case reflect.Struct:
+		d.decodeStruct(n, v, path)
+		return
+	case reflect.Slice:
+		d.decodeSlice(n, v, path)
+		return
+	}
+	if n.Kind != yaml.ScalarNode {
+		d.errorf(n.Line, path, "must be %s, got %s", kindWord(v.Kind()), describe(n))
+		return
+	}
+	switch v.Kind() {
+	case reflect.String:
+		// Any plain scalar reads as text: client_id: 1234 means "1234".
+		v.SetString(n.Value)
+	case reflect.Bool:
+		if n.Tag != "!!bool" {
+			d.errorf(n.Line, path, "must be true or false, got %s", describe(n))
+			return
+		}
+		var b bool
+		if err := n.Decode(&b); err != nil {
+			d.errorf(n.Line, path, "must be true or false, got %s", describe(n))
+			return
+		}
+		v.SetBool(b)
+	case reflect.Int:
+		if n.Tag != "!!int" {
+			d.errorf(n.Line, path, "must be a whole number, got %s", describe(n))
+			return
+		}
+		var i int64
+		if err := n.Decode(&i); err != nil || int64(int(i)) != i {
+			d.errorf(n.Line, path, "%s is out of range for a whole number", n.Value)
+			return
+		}
+		v.SetInt(i)
+	case reflect.Float64:
+		if n.Tag != "!!int" && n.Tag != "!!float" {
+			d.errorf(n.Line, path, "must be a number, got %s", describe(n))
+			return
+		}
+		var f float64
+		if err := n.Decode(&f); err != nil {
+			d.errorf(n.Line, path, "must be a number, got %s", describe(n))
+			return
+		}
+		if math.IsNaN(f) || math.IsInf(f, 0) {
+			d.errorf(n.Line, path, "must be a finite number, got %s", n.Value)
+			return
+		}
+		v.SetFloat(f)
+	default:
+		d.errorf(n.Line, path, "has an unsupported Go type %s", v.Type())
+		return
+	}
+	d.set[path] = true
+}
+
+func kindWord(k reflect.Kind) string {
+	switch k {
+	case reflect.String:
+		return "a string"
+	case reflect.Bool:
+		return "true or false"
+	case reflect.Int:
+		return "a whole number"
+	case reflect.Float64:
+		return "a number"
+	case reflect.Struct:
+		return "a mapping"
+	case reflect.Slice:
+		return "a list"
+	}
+	return k.String()
+}
+
+func (d *decoder) decodeSlice(n *yaml.Node, v reflect.Value, path string) {
+	if n.Kind != yaml.SequenceNode {
+		d.errorf(n.Line, path, "must be a list, got %s", describe(n))
+		return
+	}
+	s := reflect.MakeSlice(v.Type(), len(n.Content), len(n.Content))
+	for i, c := range n.Content {
+		d.decode(c, s.Index(i), fmt.Sprintf("%s[%d]", path, i))
+	}
+	v.Set(s)
+	d.set[path] = true
+}
+
+// pair is one key: value entry of a mapping, after merge keys are expanded.
+type pair struct {
+	key, val *yaml.Node
+}
+
+func (d *decoder) decodeStruct(n *yaml.Node, v reflect.Value, path string) {
+	if n.Kind != yaml.MappingNode {
+		if path == "" {
+			d.errorf(n.Line, "", "the top level must be a mapping of keys (vehicle, sensors, ...), got %s", describe(n))
+			return
+		}
+		d.errorf(n.Line, path, "must be a mapping, got %s", describe(n))
+		return
+	}
+	d.set[path] = true
+	fields := yamlFields(v.Type())
+	for _, p := range d.pairs(n, path) {
+		key := p.key.Value
+		i, ok := fields[key]
+		if !ok {
+			msg := "is not a known key"
+			if s := suggest(key, fieldNames(v.Type())); s != "" {
+				msg += "; did you mean " + s + "?"
+			} else {
+				msg += "; expected one of " + strings.Join(fieldNames(v.Type()), ", ")
+			}
+			d.errorf(p.key.Line, join(path, key), "%s", msg)
+			continue
+		}
+		d.decode(p.val, v.Field(i), join(path, key))
+	}
+}
+
+// pairs lists the entries of a mapping. Keys written in the mapping come
+// first; entries from YAML merge keys (<<: *anchor) fill in keys that are
+// not written, as the merge key type specifies (yaml.org/type/merge).
+func (d *decoder) pairs(n *yaml.Node, path string) []pair {
+	var own, merged []pair
+	first := map[string]int{}
+	for i := 0; i+1 < len(n.Content); i += 2 {
+		k := d.resolve(n.Content[i])
+		if k == nil {
+			return own
+		}
+		if k.Kind != yaml.ScalarNode {
+			d.errorf(k.Line, path, "has a key that is %s; keys must be plain names", describe(k))
+			continue
+		}
+		if k.Tag == "!!merge" {
+			merged = append(merged, d.mergeSource(n.Content[i+1], path)...)
+			continue
+		}
+		if at, dup := first[k.Value]; dup {
+			d.errorf(k.Line, join(path, k.Value), "is given twice (first at line %d)", at)
+			continue
+		}
+		first[k.Value] = k.Line
+		own = append(own, pair{k, n.Content[i+1]})
+	}
+	for _, p := range merged {
+		if _, ok := first[p.key.Value]; ok {
+			continue
+		}
+		first[p.key.Value] = p.key.Line
+		own = append(own, p)
+	}
+	return own
+}
+
+func (d *decoder) mergeSource(n *yaml.Node, path string) []pair {
+	n = d.resolve(n)
+	if n == nil {
+		return nil
+	}
+	switch n.Kind {
+	case yaml.MappingNode:
+		return d.pairs(n, path)
+	case yaml.SequenceNode:
+		// Earlier mappings in the list take precedence over later ones.
+		var out []pair
+		seen := map[string]bool{}
+		for _, c := range n.Content {
+			c = d.resolve(c)
+			if c == nil {
+				return out
+			}
+			if c.Kind != yaml.MappingNode {
+				d.errorf(c.Line, path, "merge key (<<) must refer to mappings, got %s", describe(c))
+				continue
+			}
+			for _, p := range d.pairs(c, path) {
+				if !seen[p.key.Value] {
+					seen[p.key.Value] = true
+					out = append(out, p)
+				}
+			}
+		}
+		return out
+	}
+	d.errorf(n.Line, path, "merge key (<<) must refer to a mapping, got %s", describe(n))
+	return nil
+}
+
+// yamlFields maps a struct's yaml keys to field indexes.
+func yamlFields(t reflect.Type) map[string]int {
+	m := make(map[string]int, t.NumField())
+	for i := 0; i < t.NumField(); i++ {
+		if k := yamlKey(t.Field(i)); k != "" {
+			m[k] = i
+		}
+	}
+	return m
+}
+
+func yamlKey(f reflect.StructField) string {
+	tag := f.Tag.Get("yaml")
+	if tag == "" || tag == "-" {
+		return ""
+	}
+	name, _, _ := strings.Cut(tag, ",")
+	return name
+}
+
+func fieldNames(t reflect.Type) []string {
+	var names []string
+	for i := 0; i < t.NumField(); i++ {
+		if k := yamlKey(t.Field(i)); k != "" {
+			names = append(names, k)
+		}
+	}
+	return names
+}
+
+// suggest returns the candidate closest to s by edit distance when it is
+// a plausible typo (at most 2 edits, or a third of the word), else "".
+func suggest(s string, candidates []string) string {
+	best, bestD := "", math.MaxInt
+	for _, c := range candidates {
+		d := editDistance(strings.ToLower(s), c)
+		if d < bestD || (d == bestD && c < best) {
+			best, bestD = c, d
+		}
+	}
+	limit := max(2, len(s)/3)
+	if bestD > limit {
+		return ""
+	}
+	return best
+}
+
+// editDistance is the Levenshtein distance (Levenshtein 1966), computed with
+// the usual two-row dynamic programme over bytes.
+func editDistance(a, b string) int {
+	if len(a) > 64 || len(b) > 64 {
+		return math.MaxInt // not a typo of any key; keeps fuzzed input cheap
+	}
+	prev := make([]int, len(b)+1)
+	cur := make([]int, len(b)+1)
+	for j := range prev {
+		prev[j] = j
+	}
+	for i := 1; i <= len(a); i++ {
+		cur[0] = i
+		for j := 1; j <= len(b); j++ {
+			cost := 1
+			if a[i-1] == b[j-1] {
+				cost = 0
+			}
+			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
+		}
+		prev, cur = cur, prev
+	}
+	return prev[len(b)]
+}
+
+// sortErrors orders problems by line so the list reads top to bottom;
+// problems without a line come first, and ties keep their finding order.
+func sortErrors(errs []*Error) {
+	sort.SliceStable(errs, func(i, j int) bool { return errs[i].Line < errs[j].Line })
+}
