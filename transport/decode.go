@@ -1,0 +1,545 @@
+package transport
+
+import (
+	"errors"
+	"math"
+	"strconv"
+	"time"
+
+	"github.com/valyala/fastjson"
+)
+
+// Version is the message schema version this package reads and writes.
+const Version = 1
+
+// Reason is why a measurement message was rejected. The set is fixed (v1);
+// health counters and metrics are keyed by Reason.String().
+type Reason uint8
+
+const (
+	// ReasonBadJSON: the payload is not syntactically valid JSON (RFC 8259).
+	ReasonBadJSON Reason = iota
+	// ReasonUnknownSensor: sensor is missing, not a string, or not configured.
+	ReasonUnknownSensor
+	// ReasonBadDims: z or r has the wrong number of values for the sensor.
+	ReasonBadDims
+	// ReasonNonFinite: a number is beyond the float64 range.
+	ReasonNonFinite
+	// ReasonBadCov: r is not symmetric positive definite.
+	ReasonBadCov
+	// ReasonTimeImplausible: t_ns is not an int64 or is outside the
+	// plausible window around the arrival time.
+	ReasonTimeImplausible
+	// ReasonTooLarge: the payload, the number of dets, a class string or
+	// the nesting depth is over its limit.
+	ReasonTooLarge
+	// ReasonBadVersion: valid JSON but not a v1 measurement: v is missing
+	// or not the integer 1, the top level is not an object, or a v1 field
+	// is missing or has the wrong JSON type.
+	ReasonBadVersion
+
+	// NumReasons sizes arrays of per-reason counters.
+	NumReasons = int(ReasonBadVersion) + 1
+)
+
+var reasonNames = [NumReasons]string{
+	"bad_json", "unknown_sensor", "bad_dims", "non_finite", "bad_cov",
+	"time_implausible", "too_large", "bad_version",
+}
+
+// String returns the reason code used on the wire and in metrics.
+func (r Reason) String() string {
+	if int(r) < NumReasons {
+		return reasonNames[r]
+	}
+	return "reason(" + strconv.Itoa(int(r)) + ")"
+}
+
+// ParseReason maps a reason code back to its Reason.
+func ParseReason(code string) (Reason, bool) {
+	for i, n := range reasonNames {
+		if n == code {
+			return Reason(i), true
+		}
+	}
+	return 0, false
+}
+
+// DecodeError is a rejected measurement message. Msg names the field, e.g.
+// `dets[3].z[1] is 1e400, beyond the float64 range`.
+type DecodeError struct {
+	Reason Reason
+	Msg    string
+}
+
+func (e *DecodeError) Error() string { return e.Reason.String() + ": " + e.Msg }
+
+// ReasonOf returns the reason of a *DecodeError anywhere in err's chain.
+func ReasonOf(err error) (Reason, bool) {
+	var de *DecodeError
+	if errors.As(err, &de) {
+		return de.Reason, true
+	}
+	return 0, false
+}
+
+func reject(r Reason, msg string) error { return &DecodeError{Reason: r, Msg: msg} }
+
+// SensorSpec is what the decoder needs to know about a configured sensor.
+type SensorSpec struct {
+	Name string
+	Dim  int // measurement dimension m, 1..MaxMeasDim
+}
+
+// Limits bound what the decoder accepts. Zero fields take the defaults below.
+type Limits struct {
+	MaxPayloadBytes int // default 65536
+	MaxDets         int // detections per message, default 1024
+	MaxClassBytes   int // length of a class string, default 64
+	// A measurement may be at most PastWindow older and FutureWindow newer
+	// than its arrival time. A negative window disables that side of the
+	// check (e.g. free-running sensor clocks with clock: estimate).
+	PastWindow   time.Duration // default 10 s
+	FutureWindow time.Duration // default 2 s
+}
+
+// Default limits. The time window is wide compared with any lag window
+// (hundreds of ms) so that only unit mistakes and broken clocks trip it.
+const (
+	DefaultMaxPayloadBytes = 64 << 10
+	DefaultMaxDets         = 1024
+	DefaultMaxClassBytes   = 64
+	DefaultPastWindow      = 10 * time.Second
+	DefaultFutureWindow    = 2 * time.Second
+)
+
+// WithDefaults returns l with zero fields replaced by the defaults.
+func (l Limits) WithDefaults() Limits {
+	if l.MaxPayloadBytes <= 0 {
+		l.MaxPayloadBytes = DefaultMaxPayloadBytes
+	}
+	if l.MaxDets <= 0 {
+		l.MaxDets = DefaultMaxDets
+	}
+	if l.MaxClassBytes <= 0 {
+		l.MaxClassBytes = DefaultMaxClassBytes
+	}
+	if l.PastWindow == 0 {
+		l.PastWindow = DefaultPastWindow
+	}
+	if l.FutureWindow == 0 {
+		l.FutureWindow = DefaultFutureWindow
+	}
+	return l
+}
+
+// maxDecodeDepth is far above a measurement's own depth (object, dets, det,
+// z = 4) and leaves room for nested extension fields; fastjson stops at 300.
+const maxDecodeDepth = 64
+
+// maxInternedClasses bounds the class table so a sender cycling through
+// random class strings cannot grow memory; beyond it classes are copied.
+const maxInternedClasses = 1024
+
+// Decoder decodes v1 measurement messages. It reuses its parser and scratch
+// space, so Decode allocates nothing for accepted messages once warm (a
+// rejected message costs one small error value). A Decoder is not safe for
+// concurrent use; give each goroutine its own.
+type Decoder struct {
+	limits  Limits
+	sensors []SensorSpec
+	byName  map[string]int
+	classes map[string]string
+	syntax  syntaxChecker
+	parser  fastjson.Parser
+	num     []byte
+	// Top-level fields of the message being decoded (last one wins when a
+	// key repeats, as with encoding/json).
+	fv, fsensor, fseq, ftns, fdets *fastjson.Value
+	// Fields of the detection being decoded.
+	dz, dr, dclass, dscore *fastjson.Value
+}
+
+// NewDecoder returns a decoder for the given sensors.
+func NewDecoder(sensors []SensorSpec, limits Limits) (*Decoder, error) {
+	d := &Decoder{
+		limits:  limits.WithDefaults(),
+		sensors: append([]SensorSpec(nil), sensors...),
+		byName:  make(map[string]int, len(sensors)),
+		classes: make(map[string]string),
+		num:     make([]byte, 0, 64),
+	}
+	for i, s := range sensors {
+		if s.Name == "" {
+			return nil, errors.New("transport: sensor " + strconv.Itoa(i) + " has no name")
+		}
+		if s.Dim < 1 || s.Dim > MaxMeasDim {
+			return nil, errors.New("transport: sensor " + s.Name + " has dimension " + strconv.Itoa(s.Dim) +
+				", want 1.." + strconv.Itoa(MaxMeasDim))
+		}
+		if _, dup := d.byName[s.Name]; dup {
+			return nil, errors.New("transport: sensor " + s.Name + " is configured twice")
+		}
+		d.byName[s.Name] = i
+	}
+	return d, nil
+}
+
+// Limits returns the limits in force (defaults filled in).
+func (d *Decoder) Limits() Limits { return d.limits }
+
+// Decode decodes payload into dst. arrivalNs is when the message arrived
+// (ns since the Unix epoch, the receiver's clock); 0 means unknown and skips
+// the time-window check. On error the returned error is a *DecodeError, dst
+// holds no detections and must be dropped: a message with any invalid part
+// is rejected whole.
+func (d *Decoder) Decode(payload []byte, arrivalNs int64, dst *Measurement) error {
+	err := d.decode(payload, arrivalNs, dst)
+	if err != nil {
+		*dst = Measurement{Dets: dst.Dets[:0]}
+	}
+	return err
+}
+
+func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) error {
+	if len(payload) > d.limits.MaxPayloadBytes {
+		return reject(ReasonTooLarge, "payload is "+strconv.Itoa(len(payload))+" bytes, limit "+
+			strconv.Itoa(d.limits.MaxPayloadBytes))
+	}
+	depth, serr, ok := d.syntax.check(payload)
+	if !ok {
+		return reject(ReasonBadJSON, "not valid JSON at byte "+strconv.Itoa(serr.off)+": "+serr.why)
+	}
+	if depth > maxDecodeDepth {
+		return reject(ReasonTooLarge, "JSON nested "+strconv.Itoa(depth)+" levels deep, limit "+
+			strconv.Itoa(maxDecodeDepth))
+	}
+	root, err := d.parser.ParseBytes(payload)
+	if err != nil {
+		// Unreachable after the syntax check; kept so a parser change
+		// cannot turn into a panic.
+		return reject(ReasonBadJSON, "not valid JSON")
+	}
+	obj, err := root.Object()
+	if err != nil {
+		return reject(ReasonBadVersion, "message is a JSON "+root.Type().String()+", not an object")
+	}
+	d.fv, d.fsensor, d.fseq, d.ftns, d.fdets = nil, nil, nil, nil, nil
+	obj.Visit(func(k []byte, v *fastjson.Value) {
+		switch string(k) {
+		case "v":
+			d.fv = v
+		case "sensor":
+			d.fsensor = v
+		case "seq":
+			d.fseq = v
+		case "t_ns":
+			d.ftns = v
+		case "dets":
+			d.fdets = v
+		}
+	})
+
+	// v
+	if d.fv == nil {
+		return reject(ReasonBadVersion, "v is missing")
+	}
+	if ver, ok := d.intField(d.fv); !ok || ver != Version {
+		return reject(ReasonBadVersion, "v must be the integer 1")
+	}
+
+	// sensor
+	if d.fsensor == nil {
+		return reject(ReasonUnknownSensor, "sensor is missing")
+	}
+	name, err := d.fsensor.StringBytes()
+	if err != nil {
+		return reject(ReasonUnknownSensor, "sensor is a "+d.fsensor.Type().String()+", not a string")
+	}
+	idx, known := d.byName[string(name)]
+	if !known {
+		return reject(ReasonUnknownSensor, "sensor "+strconv.Quote(string(name))+" is not configured")
+	}
+	spec := &d.sensors[idx]
+
+	// seq
+	if d.fseq == nil {
+		return reject(ReasonBadVersion, "seq is missing")
+	}
+	seq, ok := d.uintField(d.fseq)
+	if !ok {
+		return reject(ReasonBadVersion, "seq must be a non-negative integer")
+	}
+
+	// t_ns
+	if d.ftns == nil {
+		return reject(ReasonBadVersion, "t_ns is missing")
+	}
+	tns, ok := d.intField(d.ftns)
+	if !ok {
+		return reject(ReasonTimeImplausible, "t_ns must be an integer number of ns that fits int64")
+	}
+	if arrivalNs != 0 {
+		// Unsigned differences: exact even when t_ns is wildly off.
+		if w := d.limits.PastWindow; w >= 0 && tns < arrivalNs {
+			if gap := uint64(arrivalNs) - uint64(tns); gap > uint64(w) {
+				return reject(ReasonTimeImplausible, "t_ns is "+gapText(gap)+" before arrival, window "+w.String())
+			}
+		}
+		if w := d.limits.FutureWindow; w >= 0 && tns > arrivalNs {
+			if gap := uint64(tns) - uint64(arrivalNs); gap > uint64(w) {
+				return reject(ReasonTimeImplausible, "t_ns is "+gapText(gap)+" after arrival, window "+w.String())
+			}
+		}
+	}
+
+	// dets
+	if d.fdets == nil {
+		return reject(ReasonBadVersion, "dets is missing (send [] for a scan that saw nothing)")
+	}
+	dets, err := d.fdets.Array()
+	if err != nil {
+		return reject(ReasonBadVersion, "dets is a "+d.fdets.Type().String()+", not a list")
+	}
+	if len(dets) > d.limits.MaxDets {
+		return reject(ReasonTooLarge, "dets has "+strconv.Itoa(len(dets))+" entries, limit "+
+			strconv.Itoa(d.limits.MaxDets))
+	}
+	out := dst.Dets[:0]
+	for i, dv := range dets {
+		if cap(out) > len(out) {
+			out = out[:len(out)+1]
+		} else {
+			out = append(out, Detection{})
+		}
+		if err := d.detection(i, dv, spec, &out[len(out)-1]); err != nil {
+			dst.Dets = out[:0]
+			return err
+		}
+	}
+	*dst = Measurement{V: Version, Sensor: spec.Name, SensorIdx: idx, Seq: seq, TNs: tns, Dets: out}
+	return nil
+}
+
+func (d *Decoder) detection(i int, dv *fastjson.Value, spec *SensorSpec, det *Detection) error {
+	o, err := dv.Object()
+	if err != nil {
+		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"] is a "+dv.Type().String()+", not an object")
+	}
+	d.dz, d.dr, d.dclass, d.dscore = nil, nil, nil, nil
+	o.Visit(func(k []byte, v *fastjson.Value) {
+		switch string(k) {
+		case "z":
+			d.dz = v
+		case "r":
+			d.dr = v
+		case "class":
+			d.dclass = v
+		case "score":
+			d.dscore = v
+		}
+	})
+	*det = Detection{Dim: spec.Dim}
+	m := spec.Dim
+
+	if d.dz == nil {
+		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"].z is missing")
+	}
+	if err := d.vector(i, "z", d.dz, m, det.Z[:]); err != nil {
+		return err
+	}
+	if d.dr != nil {
+		if err := d.vector(i, "r", d.dr, m*m, det.R[:]); err != nil {
+			return err
+		}
+		if msg := checkCovariance(det.R[:m*m], m); msg != "" {
+			return reject(ReasonBadCov, "dets["+strconv.Itoa(i)+"].r "+msg)
+		}
+		det.HasR = true
+	}
+	if d.dclass != nil {
+		c, err := d.dclass.StringBytes()
+		if err != nil {
+			return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"].class is a "+d.dclass.Type().String()+", not a string")
+		}
+		if len(c) > d.limits.MaxClassBytes {
+			return reject(ReasonTooLarge, "dets["+strconv.Itoa(i)+"].class is "+strconv.Itoa(len(c))+
+				" bytes, limit "+strconv.Itoa(d.limits.MaxClassBytes))
+		}
+		det.Class = d.intern(c)
+	}
+	if d.dscore != nil {
+		s, ok, msg := number(d.dscore)
+		if !ok {
+			r := ReasonNonFinite
+			if d.dscore.Type() != fastjson.TypeNumber {
+				r = ReasonBadVersion
+			}
+			return reject(r, "dets["+strconv.Itoa(i)+"].score "+msg)
+		}
+		det.Score, det.HasScore = s, true
+	}
+	return nil
+}
+
+// vector reads a JSON list of exactly n finite numbers into out[:n].
+func (d *Decoder) vector(i int, field string, v *fastjson.Value, n int, out []float64) error {
+	a, err := v.Array()
+	if err != nil {
+		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"]."+field+" is a "+v.Type().String()+", not a list")
+	}
+	if len(a) != n {
+		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"]."+field+" has "+strconv.Itoa(len(a))+
+			" values, the sensor needs "+strconv.Itoa(n))
+	}
+	for j, e := range a {
+		f, ok, msg := number(e)
+		if !ok {
+			r := ReasonNonFinite
+			if e.Type() != fastjson.TypeNumber {
+				r = ReasonBadVersion
+			}
+			return reject(r, "dets["+strconv.Itoa(i)+"]."+field+"["+strconv.Itoa(j)+"] "+msg)
+		}
+		out[j] = f
+	}
+	return nil
+}
+
+// number returns a finite float64. The syntax check has already ruled out
+// NaN/Inf literals, so a non-finite result means the value overflowed.
+func number(v *fastjson.Value) (float64, bool, string) {
+	if v.Type() != fastjson.TypeNumber {
+		return 0, false, "is a " + v.Type().String() + ", not a number"
+	}
+	f, err := v.Float64()
+	if err != nil || math.IsInf(f, 0) || math.IsNaN(f) {
+		return 0, false, "is beyond the float64 range"
+	}
+	return f, true, ""
+}
+
+// intField reads an integer literal (no fraction or exponent) fitting int64.
+func (d *Decoder) intField(v *fastjson.Value) (int64, bool) {
+	if v.Type() != fastjson.TypeNumber {
+		return 0, false
+	}
+	d.num = v.MarshalTo(d.num[:0])
+	return parseInt64(d.num)
+}
+
+// uintField reads a non-negative integer literal fitting uint64.
+func (d *Decoder) uintField(v *fastjson.Value) (uint64, bool) {
+	if v.Type() != fastjson.TypeNumber {
+		return 0, false
+	}
+	d.num = v.MarshalTo(d.num[:0])
+	if len(d.num) == 0 || d.num[0] == '-' {
+		// "-0" is an integer but a sequence counter is never negative.
+		return 0, false
+	}
+	return parseUint64(d.num)
+}
+
+func parseUint64(b []byte) (uint64, bool) {
+	if len(b) == 0 {
+		return 0, false
+	}
+	var u uint64
+	for _, c := range b {
+		if c < '0' || c > '9' {
+			return 0, false
+		}
+		if u > (math.MaxUint64-uint64(c-'0'))/10 {
+			return 0, false
+		}
+		u = u*10 + uint64(c-'0')
+	}
+	return u, true
+}
+
+func parseInt64(b []byte) (int64, bool) {
+	neg := len(b) > 0 && b[0] == '-'
+	if neg {
+		b = b[1:]
+	}
+	u, ok := parseUint64(b)
+	if !ok {
+		return 0, false
+	}
+	if neg {
+		if u > 1<<63 {
+			return 0, false
+		}
+		return int64(-u), true // -(1<<63) wraps to MinInt64 exactly
+	}
+	if u > math.MaxInt64 {
+		return 0, false
+	}
+	return int64(u), true
+}
+
+func (d *Decoder) intern(b []byte) string {
+	if len(b) == 0 {
+		return ""
+	}
+	if s, ok := d.classes[string(b)]; ok {
+		return s
+	}
+	s := string(b)
+	if len(d.classes) < maxInternedClasses {
+		d.classes[s] = s
+	}
+	return s
+}
+
+// covSymTol is the relative tolerance for r's symmetry; senders print
+// rounded numbers (common practice; check-v1 uses the same 1e-9).
+const covSymTol = 1e-9
+
+// covPivotTol rejects r whose Cholesky pivots collapse relative to the
+// diagonal: such an r is singular in float64 and its inverse (in the NIS and
+// the gain) is meaningless. Relative pivot thresholds are common practice.
+const covPivotTol = 1e-12
+
+// checkCovariance tests that the row-major m×m matrix r is symmetric positive
+// definite by attempting its Cholesky factorisation r = L·Lᵀ (Golub & Van
+// Loan, Matrix Computations, Cholesky algorithm). It returns "" when r is
+// SPD, else why not.
+func checkCovariance(r []float64, m int) string {
+	for i := range m {
+		for j := i + 1; j < m; j++ {
+			a, b := r[i*m+j], r[j*m+i]
+			if math.Abs(a-b) > covSymTol*math.Max(1, math.Max(math.Abs(a), math.Abs(b))) {
+				return "is not symmetric: [" + strconv.Itoa(i) + "," + strconv.Itoa(j) + "] != [" +
+					strconv.Itoa(j) + "," + strconv.Itoa(i) + "]"
+			}
+		}
+	}
+	var l [MaxMeasDim * MaxMeasDim]float64
+	for j := range m {
+		s := r[j*m+j]
+		for k := range j {
+			s -= l[j*m+k] * l[j*m+k]
+		}
+		if !(s > covPivotTol*r[j*m+j]) || !(r[j*m+j] > 0) {
+			return "is not positive definite (Cholesky pivot " + strconv.Itoa(j) + " is not positive)"
+		}
+		l[j*m+j] = math.Sqrt(s)
+		for i := j + 1; i < m; i++ {
+			t := r[i*m+j]
+			for k := range j {
+				t -= l[i*m+k] * l[j*m+k]
+			}
+			l[i*m+j] = t / l[j*m+j]
+		}
+	}
+	return ""
+}
+
+func gapText(ns uint64) string {
+	if ns > math.MaxInt64 {
+		return "more than 292 years"
+	}
+	return time.Duration(ns).String()
+}
