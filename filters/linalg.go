@@ -25,12 +25,13 @@ var (
 type TriaWork struct {
 	n, k int
 	tau  []float64
+	tol  []float64
 	work []float64
 }
 
 // NewTriaWork returns a workspace for n×k pre-arrays (k ≥ n).
 func NewTriaWork(n, k int) *TriaWork {
-	w := &TriaWork{n: n, k: k, tau: make([]float64, n)}
+	w := &TriaWork{n: n, k: k, tau: make([]float64, n), tol: make([]float64, n)}
 	// Ask LAPACK for its preferred length once; small arrays use the
 	// unblocked path, which needs only n.
 	q := make([]float64, 1)
@@ -44,17 +45,24 @@ func NewTriaWork(n, k int) *TriaWork {
 // form" of square-root filtering (Kailath, Sayed & Hassibi 2000, §12.3),
 // realised as the LQ factorisation A = L·Q with Householder reflections
 // (LAPACK dgelqf). A is overwritten. L may not alias A. It fails with
-// ErrNotPosDef when A·Aᵀ is singular (a zero diagonal), leaving L untouched.
+// ErrNotPosDef when A·Aᵀ is numerically singular (|L_ii| ≤ k·ε·‖row i of
+// A‖), and with ErrNonFinite on NaN/Inf, leaving L untouched.
 func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 	if k < n || len(A) < n*k || len(L) < n*n || w == nil || w.n < n || len(w.work) < n {
 		return fmt.Errorf("%w: Triangularize %d×%d", ErrDimension, n, k)
+	}
+	// Row norms before the factorisation judge rank: the diagonal L_ii is the
+	// part of row i orthogonal to the rows above it, and below k·ε·‖row i‖
+	// it is rounding noise.
+	for i := 0; i < n; i++ {
+		w.tol[i] = float64(k) * 0x1p-52 * blas64.Nrm2(blas64.Vector{N: k, Inc: 1, Data: A[i*k : i*k+k]})
 	}
 	lapack64.Gelqf(blas64.General{Rows: n, Cols: k, Stride: k, Data: A[:n*k]}, w.tau[:n], w.work, len(w.work))
 	for i := 0; i < n; i++ {
 		if !finite(A[i*k : i*k+i+1]) {
 			return fmt.Errorf("%w: triangularised pre-array row %d", ErrNonFinite, i)
 		}
-		if A[i*k+i] == 0 {
+		if !(math.Abs(A[i*k+i]) > w.tol[i]) {
 			return fmt.Errorf("%w: pre-array rank deficient at column %d", ErrNotPosDef, i)
 		}
 	}
