@@ -39,7 +39,8 @@ var ErrParams = errors.New("gospa: need c > 0 and p ≥ 1")
 //
 // equals a full assignment of the smaller set under the cost min(d, c)^p,
 // plus c^p/2 for each element of the larger set left over: a pair at
-// distance ≥ c costs c^p either way (Rahmathullah et al. 2017, Prop. 1).
+// distance ≥ c costs c^p either way, assigned or left as one missed plus
+// one false (follows directly from the definition).
 func (g *Metric) Eval(truth, est [][2]float64) (Result, error) {
 	if !(g.C > 0) || !(g.P >= 1) {
 		return Result{}, ErrParams

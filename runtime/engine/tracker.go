@@ -1,0 +1,556 @@
+package engine
+
+import (
+	"math"
+	"math/bits"
+	"slices"
+
+	"github.com/godwit-fusion/godwit/filters"
+)
+
+// workspace holds the per-scan scratch of the tracker. Slices only grow,
+// so a warmed-up engine processes scans without allocating.
+type workspace struct {
+	detPos   [][2]float64
+	detCov   [][4]float64
+	detOK    []bool
+	detGated []bool
+	detUsed  []bool
+	order    []int // usable detections sorted by site x
+
+	vis      []bool
+	hit      []bool
+	lastPrep []int // −1: prepared with the track's own R; j: with detection j's R
+	trackRs  [][9]float64
+	trackDet []int
+	posVar   []float64 // trace of the predicted position covariance
+	pv       [4]float64
+	jpv      []float64
+	js       []float64 // 2×n: position rows of J·S
+
+	pairs  []pair
+	parent []int
+
+	// per-cluster assignment
+	ctracks, cdets []int
+	local          []int // track or detection → local index in its cluster
+	cost           []float64
+	rowCol         []int
+	z              [3]float64
+}
+
+type pair struct {
+	t, d int
+	nis  float64
+	root int
+}
+
+func growBool(s []bool, n int) []bool {
+	if cap(s) < n {
+		s = make([]bool, n)
+	}
+	s = s[:n]
+	clear(s)
+	return s
+}
+
+func growInt(s []int, n int) []int {
+	if cap(s) < n {
+		s = make([]int, n)
+	}
+	return s[:n]
+}
+
+func grow[T any](s []T, n int) []T {
+	if cap(s) < n {
+		s = make([]T, n)
+	}
+	return s[:n]
+}
+
+func (e *Engine) process(sc *scan) {
+	e.predictTo(sc.tNs)
+	s := e.sensors[sc.sensor]
+	switch s.kind {
+	case kindOdometry, kindGNSS:
+		e.egoUpdate(sc, s)
+	default:
+		e.trackScan(sc, s)
+	}
+}
+
+// predictTo moves every track (and the ego state) to tNs. A track whose
+// prediction fails is removed: its state can no longer be trusted.
+func (e *Engine) predictTo(tNs int64) {
+	st := &e.st
+	if !st.hasTime {
+		st.timeNs, st.hasTime = tNs, true
+		return
+	}
+	if tNs <= st.timeNs {
+		return
+	}
+	dt := float64(tNs-st.timeNs) * 1e-9
+	for i := 0; i < len(st.recs); {
+		if err := st.flt[i].Predict(dt); err != nil {
+			e.counters.FilterErrors++
+			e.counters.Deletions++
+			st.removeTrack(i)
+			continue
+		}
+		i++
+	}
+	if st.ego != nil && st.egoInit {
+		if err := st.ego.Predict(dt); err != nil {
+			e.counters.FilterErrors++
+		}
+	}
+	st.timeNs = tNs
+}
+
+// platformPose is the platform in the site frame at the current state time.
+func (e *Engine) platformPose() Pose {
+	if !e.platformMoving || !e.st.egoInit {
+		return e.fixedPose
+	}
+	x := e.st.ego.State().X // [px, py, v, yaw, yawrate]
+	return Pose{X: x[0], Y: x[1], Yaw: x[3], VX: x[2] * math.Cos(x[3]), VY: x[2] * math.Sin(x[3]), YawRate: x[4]}
+}
+
+// trackRs is the measurement noise square root a track is gated with. A
+// pinhole detector's range s.d. grows with range: hypot(noise_sd[1],
+// range_sd_frac·r), evaluated at the track's predicted range.
+func (s *sensorRT) noiseSqrt(dst *[9]float64, r float64) {
+	*dst = s.rsDefault
+	if s.kind == kindPinhole && s.rangeSDFrac > 0 {
+		dst[3] = math.Hypot(s.noiseSD[1], s.rangeSDFrac*r)
+	}
+}
+
+// trackScan is one scan of a tracking sensor: gate, assign by global
+// nearest neighbour, update, count misses where the sensor could see,
+// give birth to tracks from detections outside every gate, and retire.
+func (e *Engine) trackScan(sc *scan, s *sensorRT) {
+	st := &e.st
+	ws := &e.ws
+	g := s.geom
+	g.SetPlatform(e.platformPose())
+	n := e.motion.Dim()
+	D := len(sc.dets)
+	T := len(st.recs)
+	m := s.dim
+
+	// Detections in the site frame, for the coarse gate and for birth.
+	ws.detPos = grow(ws.detPos, D)
+	ws.detCov = grow(ws.detCov, D)
+	ws.detOK = growBool(ws.detOK, D)
+	ws.detGated = growBool(ws.detGated, D)
+	ws.detUsed = growBool(ws.detUsed, D)
+	ws.order = ws.order[:0]
+	var detEig float64
+	var R [9]float64
+	for j := range sc.dets {
+		d := &sc.dets[j]
+		e.detCovariance(s, d, &R)
+		if g.Inverse(d.z[:m], R[:m*m], &ws.detPos[j], &ws.detCov[j]) {
+			ws.detOK[j] = true
+			c := &ws.detCov[j]
+			detEig = math.Max(detEig, maxEig2(c[0], c[1], c[3]))
+			ws.order = append(ws.order, j)
+		}
+	}
+	slices.SortFunc(ws.order, func(a, b int) int {
+		if ws.detPos[a][0] < ws.detPos[b][0] {
+			return -1
+		}
+		if ws.detPos[a][0] > ws.detPos[b][0] {
+			return 1
+		}
+		return a - b
+	})
+
+	ws.vis = growBool(ws.vis, T)
+	ws.hit = growBool(ws.hit, T)
+	ws.lastPrep = growInt(ws.lastPrep, T)
+	ws.trackDet = growInt(ws.trackDet, T)
+	ws.trackRs = grow(ws.trackRs, T)
+	ws.posVar = grow(ws.posVar, T)
+	ws.jpv = grow(ws.jpv, 4*n)
+	ws.js = grow(ws.js, 2*n)
+	ws.pairs = ws.pairs[:0]
+	for i := 0; i < T; i++ {
+		ws.trackDet[i] = -1
+		ws.lastPrep[i] = -1
+		f := st.flt[i]
+		gs := f.State()
+		pxx, pxy, pyy := e.posCov(gs, ws)
+		ws.posVar[i] = pxx + pyy
+		px, py := ws.pv[0], ws.pv[1]
+		if !g.Visible(px, py) {
+			continue
+		}
+		s.noiseSqrt(&ws.trackRs[i], math.Hypot(px-g.sx, py-g.sy))
+		if f.Prepare(g, ws.trackRs[i][:m*m]) != nil {
+			e.counters.FilterErrors++
+			continue
+		}
+		ws.vis[i] = true
+		// Coarse gate in the site frame: a detection inside the NIS gate lies
+		// within √(gate·λmax(P_pos + C_det)) of the prediction to first
+		// order; the factor 2 in the radius covers linearisation error.
+		r := 2 * math.Sqrt(s.gate*(maxEig2(pxx, pxy, pyy)+detEig))
+		lo, hi := 0, len(ws.order)
+		for lo < hi {
+			mid := (lo + hi) / 2
+			if ws.detPos[ws.order[mid]][0] < px-r {
+				lo = mid + 1
+			} else {
+				hi = mid
+			}
+		}
+		for k := lo; k < len(ws.order); k++ {
+			j := ws.order[k]
+			dp := ws.detPos[j]
+			if dp[0] > px+r {
+				break
+			}
+			if math.Abs(dp[1]-py) > r {
+				continue
+			}
+			d := &sc.dets[j]
+			if !e.prepareFor(f, g, s, i, j, d) {
+				continue
+			}
+			nis := f.NIS(d.z[:m])
+			if nis <= s.gate {
+				ws.pairs = append(ws.pairs, pair{t: i, d: j, nis: nis})
+				ws.detGated[j] = true
+			}
+		}
+	}
+
+	e.assignPairs(T, D, s.gate)
+
+	// Updates and misses.
+	for i := 0; i < T; i++ {
+		if !ws.vis[i] {
+			continue
+		}
+		f := st.flt[i]
+		j := ws.trackDet[i]
+		hit := false
+		if j >= 0 {
+			d := &sc.dets[j]
+			if e.prepareFor(f, g, s, i, j, d) {
+				nis, err := f.Update(d.z[:m])
+				if err != nil {
+					e.counters.FilterErrors++
+				} else {
+					hit = true
+					if sc.fresh {
+						s.addNIS(nis)
+					}
+					if d.class != "" {
+						st.recs[i].class = d.class
+					}
+				}
+			}
+		}
+		ws.hit[i] = hit
+		e.recordOpportunity(&st.recs[i], hit, sc.tNs)
+	}
+
+	// Retire: failed confirmation, too many misses, or lost in covariance.
+	for i := T - 1; i >= 0; i-- {
+		rec := &st.recs[i]
+		drop := false
+		switch rec.status {
+		case statusTentative:
+			// Cannot reach M hits within the N-window any more.
+			drop = ws.vis[i] && bits.OnesCount64(rec.hist)+(e.confirmN-rec.nOpp) < e.confirmM
+		default:
+			drop = rec.misses >= e.deleteMisses
+		}
+		if !ws.hit[i] && ws.posVar[i] > e.maxPosVar {
+			drop = true
+		}
+		if drop {
+			st.removeTrack(i)
+			e.counters.Deletions++
+		}
+	}
+
+	// Birth from detections outside every gate.
+	for j := 0; j < D; j++ {
+		if !ws.detOK[j] || ws.detGated[j] || len(st.recs) >= e.maxTracks {
+			continue
+		}
+		e.birth(&sc.dets[j], ws.detPos[j], ws.detCov[j], sc.tNs)
+	}
+}
+
+// detCovariance is the covariance R of one detection (m×m row-major).
+func (e *Engine) detCovariance(s *sensorRT, d *storedDet, R *[9]float64) {
+	m := s.dim
+	if d.hasR {
+		copy(R[:], d.r[:m*m])
+		return
+	}
+	var rs [9]float64
+	r := 0.0
+	if s.kind == kindPinhole {
+		r = d.z[1]
+	}
+	s.noiseSqrt(&rs, r)
+	for i := 0; i < m; i++ {
+		for j := 0; j < m; j++ {
+			var v float64
+			for k := 0; k < m; k++ {
+				v += rs[i*m+k] * rs[j*m+k]
+			}
+			R[i*m+j] = v
+		}
+	}
+}
+
+// prepareFor makes sure track i's filter is prepared with the noise that
+// goes with detection j (its own R when it carries one).
+func (e *Engine) prepareFor(f filters.Filter, g *sensorGeom, s *sensorRT, i, j int, d *storedDet) bool {
+	ws := &e.ws
+	m := s.dim
+	want := -1
+	if d.hasR {
+		want = j
+	}
+	if ws.lastPrep[i] == want {
+		return true
+	}
+	var err error
+	if want < 0 {
+		err = f.Prepare(g, ws.trackRs[i][:m*m])
+	} else {
+		err = f.Prepare(g, d.rs[:m*m])
+	}
+	if err != nil {
+		e.counters.FilterErrors++
+		ws.lastPrep[i] = -2
+		return false
+	}
+	ws.lastPrep[i] = want
+	return true
+}
+
+// posCov writes the predicted [px,py,vx,vy] into ws.pv and returns the
+// position covariance J_p·S·Sᵀ·J_pᵀ.
+func (e *Engine) posCov(gs filters.Gaussian, ws *workspace) (pxx, pxy, pyy float64) {
+	n := len(gs.X)
+	e.motion.PosVel(ws.pv[:], gs.X, ws.jpv)
+	for r := 0; r < 2; r++ {
+		for c := 0; c < n; c++ {
+			var v float64
+			for k := c; k < n; k++ { // S is lower triangular
+				v += ws.jpv[r*n+k] * gs.S[k*n+c]
+			}
+			ws.js[r*n+c] = v
+		}
+	}
+	for c := 0; c < n; c++ {
+		a, b := ws.js[c], ws.js[n+c]
+		pxx += a * a
+		pxy += a * b
+		pyy += b * b
+	}
+	return
+}
+
+func (s *sensorRT) addNIS(v float64) {
+	s.nis[s.nisPos] = v
+	s.nisPos = (s.nisPos + 1) % nisWindow
+	if s.nisN < nisWindow {
+		s.nisN++
+	}
+}
+
+// recordOpportunity applies the track-life rules to one scan in which a
+// sensor could see the track: M-of-N confirmation, coasting on a miss.
+func (e *Engine) recordOpportunity(rec *trackRec, hit bool, tNs int64) {
+	mask := uint64(1)<<uint(e.confirmN) - 1
+	rec.hist <<= 1
+	if hit {
+		rec.hist |= 1
+		rec.hits++
+		rec.misses = 0
+		rec.updatedNs = tNs
+	} else {
+		rec.misses++
+	}
+	rec.hist &= mask
+	if rec.nOpp < e.confirmN {
+		rec.nOpp++
+	}
+	switch rec.status {
+	case statusTentative:
+		if bits.OnesCount64(rec.hist) >= e.confirmM {
+			rec.status = statusConfirmed
+		}
+	default:
+		if rec.misses > 0 {
+			rec.status = statusCoasting
+		} else {
+			rec.status = statusConfirmed
+		}
+	}
+}
+
+// birth starts a tentative track at a detection's site position with a
+// wide velocity prior.
+func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
+	st := &e.st
+	if len(st.flt) <= len(st.recs) {
+		f, err := e.mkFilter()
+		if err != nil {
+			e.counters.FilterErrors++
+			return
+		}
+		st.flt = append(st.flt, f)
+	}
+	n := e.motion.Dim()
+	var x0, S0 [36]float64
+	x0[0], x0[1] = pos[0], pos[1]
+	// Position block: Cholesky of the 2×2 detection covariance.
+	l00 := math.Sqrt(c[0])
+	l10 := c[2] / l00
+	l11 := math.Sqrt(math.Max(c[3]-l10*l10, 1e-12))
+	S0[0], S0[n], S0[n+1] = l00, l10, l11
+	vs := e.birthSpeedSD
+	switch e.layout {
+	case layoutCV:
+		S0[2*n+2], S0[3*n+3] = vs, vs
+	case layoutCA:
+		S0[2*n+2], S0[3*n+3] = vs, vs
+		S0[4*n+4], S0[5*n+5] = birthAccelSD, birthAccelSD
+	case layoutCTRV:
+		S0[2*n+2] = vs
+		S0[3*n+3] = math.Pi / math.Sqrt(3) // heading unknown: s.d. of a uniform angle
+		S0[4*n+4] = birthYawRateSD
+	}
+	f := st.flt[len(st.recs)]
+	if err := f.Init(x0[:n], S0[:n*n]); err != nil {
+		e.counters.FilterErrors++
+		return
+	}
+	st.nextID++
+	st.recs = append(st.recs, trackRec{id: st.nextID, status: statusTentative, hist: 1, nOpp: 1, hits: 1,
+		updatedNs: tNs, class: d.class})
+	e.counters.Births++
+	if e.confirmM <= 1 {
+		st.recs[len(st.recs)-1].status = statusConfirmed
+	}
+}
+
+// Birth priors for the higher derivatives (common practice for yard and
+// campus vehicles: accelerations within ±2 m/s², turn rates within ±0.5 rad/s).
+const (
+	birthAccelSD   = 2.0
+	birthYawRateSD = 0.5
+)
+
+// assignPairs splits the gated pairs into clusters (connected components
+// of the track–detection gate graph) and solves global nearest neighbour
+// optimally in each, so that the cost grows with the cluster sizes, not
+// with the scene (Jonker & Volgenant 1987 per cluster). A track left
+// without a detection pays the gate as its miss cost.
+func (e *Engine) assignPairs(T, D int, missCost float64) {
+	ws := &e.ws
+	if len(ws.pairs) == 0 {
+		return
+	}
+	ws.parent = growInt(ws.parent, T+D)
+	for i := range ws.parent {
+		ws.parent[i] = i
+	}
+	find := func(a int) int {
+		for ws.parent[a] != a {
+			ws.parent[a] = ws.parent[ws.parent[a]]
+			a = ws.parent[a]
+		}
+		return a
+	}
+	for _, p := range ws.pairs {
+		a, b := find(p.t), find(T+p.d)
+		if a != b {
+			if a < b {
+				ws.parent[b] = a
+			} else {
+				ws.parent[a] = b
+			}
+		}
+	}
+	for k := range ws.pairs {
+		ws.pairs[k].root = find(ws.pairs[k].t)
+	}
+	slices.SortFunc(ws.pairs, func(a, b pair) int {
+		if a.root != b.root {
+			return a.root - b.root
+		}
+		if a.t != b.t {
+			return a.t - b.t
+		}
+		return a.d - b.d
+	})
+	ws.local = growInt(ws.local, T+D)
+	for a := 0; a < len(ws.pairs); {
+		b := a + 1
+		for b < len(ws.pairs) && ws.pairs[b].root == ws.pairs[a].root {
+			b++
+		}
+		if b == a+1 {
+			p := ws.pairs[a]
+			ws.trackDet[p.t] = p.d
+		} else {
+			e.solveCluster(ws.pairs[a:b], T, missCost)
+		}
+		a = b
+	}
+}
+
+func (e *Engine) solveCluster(ps []pair, T int, missCost float64) {
+	ws := &e.ws
+	ws.ctracks, ws.cdets = ws.ctracks[:0], ws.cdets[:0]
+	for _, p := range ps {
+		if len(ws.ctracks) == 0 || ws.ctracks[len(ws.ctracks)-1] != p.t {
+			ws.ctracks = append(ws.ctracks, p.t)
+		}
+		ws.cdets = append(ws.cdets, p.d)
+	}
+	slices.Sort(ws.cdets)
+	ws.cdets = slices.Compact(ws.cdets)
+	nt, nd := len(ws.ctracks), len(ws.cdets)
+	for k, t := range ws.ctracks {
+		ws.local[t] = k
+	}
+	for k, d := range ws.cdets {
+		ws.local[T+d] = k
+	}
+	cols := nd + nt
+	ws.cost = grow(ws.cost, nt*cols)
+	inf := math.Inf(1)
+	for k := range ws.cost {
+		ws.cost[k] = inf
+	}
+	for k := 0; k < nt; k++ {
+		ws.cost[k*cols+nd+k] = missCost
+	}
+	for _, p := range ps {
+		ws.cost[ws.local[p.t]*cols+ws.local[T+p.d]] = p.nis
+	}
+	ws.rowCol = growInt(ws.rowCol, nt)
+	if _, err := e.solver.Solve(ws.cost, nt, cols, ws.rowCol); err != nil {
+		return // cannot happen: every row has its finite miss column
+	}
+	for k, c := range ws.rowCol {
+		if c < nd {
+			ws.trackDet[ws.ctracks[k]] = ws.cdets[c]
+		}
+	}
+}
