@@ -37,6 +37,10 @@ func usageArgs(check cobra.PositionalArgs) cobra.PositionalArgs {
 	}
 }
 
+// commands lists the sub-commands; each command's file adds itself in an init
+// function, so commands can be developed side by side without touching this file.
+var commands []func() *cobra.Command
+
 func newRootCmd() *cobra.Command {
 	root := &cobra.Command{
 		Use:   "godwit",
@@ -51,6 +55,9 @@ godwit is not a certified safety component; see the README.`,
 	}
 	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error { return usageError{err} })
 	root.AddCommand(newVersionCmd())
+	for _, c := range commands {
+		root.AddCommand(c())
+	}
 	return root
 }
 
