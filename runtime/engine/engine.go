@@ -83,11 +83,11 @@ type sensorRT struct {
 	periodNs    float64
 
 	messages, detections, rejected, lateDropped, lost uint64
-	lastSeq                                          uint64
-	haveSeq                                          bool
-	lastArrival                                      int64
-	haveArrival                                      bool
-	meanGapNs                                        float64
+	lastSeq                                           uint64
+	haveSeq                                           bool
+	lastArrival                                       int64
+	haveArrival                                       bool
+	meanGapNs                                         float64
 
 	offsetNs        float64 // estimated clock offset (arrival − t_ns lower envelope)
 	haveOffset      bool
