@@ -4,10 +4,14 @@
 package main
 
 import (
+	"context"
 	"errors"
 	"fmt"
+	"io"
 	"os"
+	"os/signal"
 	"strings"
+	"syscall"
 
 	"github.com/spf13/cobra"
 )
@@ -62,20 +66,33 @@ godwit is not a certified safety component; see the README.`,
 }
 
 func main() {
-	os.Exit(run(os.Args[1:]))
+	// SIGINT/SIGTERM cancel the context: long-running commands (run, record,
+	// replay) stop gracefully and exit 0.
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	code := runContext(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	stop()
+	os.Exit(code)
 }
 
-func run(args []string) int {
+func run(args []string) int { return runContext(context.Background(), args, os.Stdout, os.Stderr) }
+
+// runContext runs one command line and returns its exit code; tests drive
+// the commands through it with their own context and output streams.
+func runContext(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	root := newRootCmd()
 	root.SetArgs(args)
-	err := root.Execute()
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	err := root.ExecuteContext(ctx)
 	if err == nil {
 		return exitOK
 	}
-	fmt.Fprintln(os.Stderr, "godwit:", err)
+	fmt.Fprintln(stderr, "godwit:", err)
 	var ue usageError
-	// cobra reports an unknown sub-command as a plain error; it is bad usage too.
-	if errors.As(err, &ue) || strings.HasPrefix(err.Error(), "unknown command") {
+	// cobra reports an unknown sub-command and a missing required flag as
+	// plain errors; both are bad usage too.
+	msg := err.Error()
+	if errors.As(err, &ue) || strings.HasPrefix(msg, "unknown command") || strings.HasPrefix(msg, "required flag") {
 		return exitUsage
 	}
 	return exitRuntime
