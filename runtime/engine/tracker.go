@@ -14,8 +14,7 @@ type workspace struct {
 	detPos   [][2]float64
 	detCov   [][4]float64
 	detOK    []bool
-	detGated []bool
-	detUsed  []bool
+	detGated []bool // inside some track's birth gate
 	order    []int // usable detections sorted by site x
 
 	vis      []bool
@@ -145,7 +144,6 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	ws.detCov = grow(ws.detCov, D)
 	ws.detOK = growBool(ws.detOK, D)
 	ws.detGated = growBool(ws.detGated, D)
-	ws.detUsed = growBool(ws.detUsed, D)
 	ws.order = ws.order[:0]
 	var detEig float64
 	var R [9]float64
@@ -224,6 +222,8 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 			nis := f.NIS(d.z[:m])
 			if nis <= s.gate {
 				ws.pairs = append(ws.pairs, pair{t: i, d: j, nis: nis})
+			}
+			if nis <= birthGateFactor*s.gate {
 				ws.detGated[j] = true
 			}
 		}
@@ -280,7 +280,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 		}
 	}
 
-	// Birth from detections outside every gate.
+	// Birth from detections outside every birth gate.
 	for j := 0; j < D; j++ {
 		if !ws.detOK[j] || ws.detGated[j] || len(st.recs) >= e.maxTracks {
 			continue
@@ -447,6 +447,13 @@ func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
 		st.recs[len(st.recs)-1].status = statusConfirmed
 	}
 }
+
+// birthGateFactor: a detection with NIS under this many gates of some
+// track is taken for a stray return of that track (a 1-in-1000 outlier at
+// gate_prob 0.999), not for a new object, and starts no track; without it
+// every outlier would seed a duplicate (common practice). The factor 4
+// doubles the gate radius, which the coarse pre-gate radius still covers.
+const birthGateFactor = 4
 
 // Birth priors for the higher derivatives (common practice for yard and
 // campus vehicles: accelerations within ±2 m/s², turn rates within ±0.5 rad/s).
