@@ -24,7 +24,9 @@ type decoder struct {
 	file   string
 	errs   []*Error
 	lines  map[string]int  // field path -> line of its value
+	cols   map[string]int  // field path -> column of its value
 	set    map[string]bool // field paths given in the file (non-null)
+	seen   map[string]bool // problems already recorded
 	budget int
 	over   bool
 }
@@ -33,13 +35,32 @@ func newDecoder(file string) *decoder {
 	return &decoder{
 		file:   file,
 		lines:  map[string]int{},
+		cols:   map[string]int{},
 		set:    map[string]bool{},
+		seen:   map[string]bool{},
 		budget: maxNodes,
 	}
 }
 
 func (d *decoder) errorf(line int, path, format string, args ...any) {
-	d.errs = append(d.errs, &Error{File: d.file, Line: line, Path: path, Msg: fmt.Sprintf(format, args...)})
+	d.errorAt(line, 0, path, format, args...)
+}
+
+// errorAt records a problem once: a mapping merged in several places (<<)
+// would otherwise report the same mistake at the same place again.
+func (d *decoder) errorAt(line, col int, path, format string, args ...any) {
+	e := &Error{File: d.file, Line: line, Column: col, Path: path, Msg: fmt.Sprintf(format, args...)}
+	key := fmt.Sprintf("%d\x00%s\x00%s", line, path, e.Msg)
+	if d.seen[key] {
+		return
+	}
+	d.seen[key] = true
+	d.errs = append(d.errs, e)
+}
+
+// nodeErr records a problem at a node's line and column.
+func (d *decoder) nodeErr(n *yaml.Node, path, format string, args ...any) {
+	d.errorAt(n.Line, n.Column, path, format, args...)
 }
 
 // resolve follows aliases and charges the node budget; it returns nil once
@@ -73,8 +94,8 @@ func describe(n *yaml.Node) string {
 	case yaml.SequenceNode:
 		return "a list"
 	case yaml.ScalarNode:
-		if n.Tag == "!!str" {
-			return strconv.Quote(n.Value)
+		if n.Tag == "!!str" || len(n.Value) > 60 || strconv.Quote(n.Value) != `"`+n.Value+`"` {
+			return clip(n.Value)
 		}
 		return n.Value
 	}
@@ -94,7 +115,7 @@ func (d *decoder) decode(n *yaml.Node, v reflect.Value, path string) {
 	if n == nil {
 		return
 	}
-	d.lines[path] = n.Line
+	d.lines[path], d.cols[path] = n.Line, n.Column
 	if isNull(n) {
 		return // an empty value means "not given": the default applies
 	}
@@ -107,7 +128,7 @@ func (d *decoder) decode(n *yaml.Node, v reflect.Value, path string) {
 		return
 	}
 	if n.Kind != yaml.ScalarNode {
-		d.errorf(n.Line, path, "must be %s, got %s", kindWord(v.Kind()), describe(n))
+		d.nodeErr(n, path, "must be %s, got %s", kindWord(v.Kind()), describe(n))
 		return
 	}
 	switch v.Kind() {
@@ -116,43 +137,43 @@ func (d *decoder) decode(n *yaml.Node, v reflect.Value, path string) {
 		v.SetString(n.Value)
 	case reflect.Bool:
 		if n.Tag != "!!bool" {
-			d.errorf(n.Line, path, "must be true or false, got %s", describe(n))
+			d.nodeErr(n, path, "must be true or false, got %s", describe(n))
 			return
 		}
 		var b bool
 		if err := n.Decode(&b); err != nil {
-			d.errorf(n.Line, path, "must be true or false, got %s", describe(n))
+			d.nodeErr(n, path, "must be true or false, got %s", describe(n))
 			return
 		}
 		v.SetBool(b)
 	case reflect.Int:
 		if n.Tag != "!!int" {
-			d.errorf(n.Line, path, "must be a whole number, got %s", describe(n))
+			d.nodeErr(n, path, "must be a whole number, got %s", describe(n))
 			return
 		}
 		var i int64
 		if err := n.Decode(&i); err != nil || int64(int(i)) != i {
-			d.errorf(n.Line, path, "%s is out of range for a whole number", n.Value)
+			d.nodeErr(n, path, "%s is out of range for a whole number", describe(n))
 			return
 		}
 		v.SetInt(i)
 	case reflect.Float64:
 		if n.Tag != "!!int" && n.Tag != "!!float" {
-			d.errorf(n.Line, path, "must be a number, got %s", describe(n))
+			d.nodeErr(n, path, "must be a number, got %s", describe(n))
 			return
 		}
 		var f float64
 		if err := n.Decode(&f); err != nil {
-			d.errorf(n.Line, path, "must be a number, got %s", describe(n))
+			d.nodeErr(n, path, "must be a number, got %s", describe(n))
 			return
 		}
 		if math.IsNaN(f) || math.IsInf(f, 0) {
-			d.errorf(n.Line, path, "must be a finite number, got %s", n.Value)
+			d.nodeErr(n, path, "must be a finite number, got %s", describe(n))
 			return
 		}
 		v.SetFloat(f)
 	default:
-		d.errorf(n.Line, path, "has an unsupported Go type %s", v.Type())
+		d.nodeErr(n, path, "has an unsupported Go type %s", v.Type())
 		return
 	}
 	d.set[path] = true
@@ -178,7 +199,7 @@ func kindWord(k reflect.Kind) string {
 
 func (d *decoder) decodeSlice(n *yaml.Node, v reflect.Value, path string) {
 	if n.Kind != yaml.SequenceNode {
-		d.errorf(n.Line, path, "must be a list, got %s", describe(n))
+		d.nodeErr(n, path, "must be a list, got %s", describe(n))
 		return
 	}
 	s := reflect.MakeSlice(v.Type(), len(n.Content), len(n.Content))
@@ -197,10 +218,10 @@ type pair struct {
 func (d *decoder) decodeStruct(n *yaml.Node, v reflect.Value, path string) {
 	if n.Kind != yaml.MappingNode {
 		if path == "" {
-			d.errorf(n.Line, "", "the top level must be a mapping of keys (vehicle, sensors, ...), got %s", describe(n))
+			d.nodeErr(n, "", "the top level must be a mapping of keys (vehicle, sensors, ...), got %s", describe(n))
 			return
 		}
-		d.errorf(n.Line, path, "must be a mapping, got %s", describe(n))
+		d.nodeErr(n, path, "must be a mapping, got %s", describe(n))
 		return
 	}
 	d.set[path] = true
@@ -215,7 +236,7 @@ func (d *decoder) decodeStruct(n *yaml.Node, v reflect.Value, path string) {
 			} else {
 				msg += "; expected one of " + strings.Join(fieldNames(v.Type()), ", ")
 			}
-			d.errorf(p.key.Line, join(path, key), "%s", msg)
+			d.nodeErr(p.key, join(path, key), "%s", msg)
 			continue
 		}
 		d.decode(p.val, v.Field(i), join(path, key))
@@ -234,7 +255,7 @@ func (d *decoder) pairs(n *yaml.Node, path string) []pair {
 			return own
 		}
 		if k.Kind != yaml.ScalarNode {
-			d.errorf(k.Line, path, "has a key that is %s; keys must be plain names", describe(k))
+			d.nodeErr(k, path, "has a key that is %s; keys must be plain names", describe(k))
 			continue
 		}
 		if k.Tag == "!!merge" {
@@ -242,7 +263,7 @@ func (d *decoder) pairs(n *yaml.Node, path string) []pair {
 			continue
 		}
 		if at, dup := first[k.Value]; dup {
-			d.errorf(k.Line, join(path, k.Value), "is given twice (first at line %d)", at)
+			d.nodeErr(k, join(path, k.Value), "is given twice (first at line %d)", at)
 			continue
 		}
 		first[k.Value] = k.Line
@@ -276,7 +297,7 @@ func (d *decoder) mergeSource(n *yaml.Node, path string) []pair {
 				return out
 			}
 			if c.Kind != yaml.MappingNode {
-				d.errorf(c.Line, path, "merge key (<<) must refer to mappings, got %s", describe(c))
+				d.nodeErr(c, path, "merge key (<<) must refer to mappings, got %s", describe(c))
 				continue
 			}
 			for _, p := range d.pairs(c, path) {
@@ -288,7 +309,7 @@ func (d *decoder) mergeSource(n *yaml.Node, path string) []pair {
 		}
 		return out
 	}
-	d.errorf(n.Line, path, "merge key (<<) must refer to a mapping, got %s", describe(n))
+	d.nodeErr(n, path, "merge key (<<) must refer to a mapping, got %s", describe(n))
 	return nil
 }
 

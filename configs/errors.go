@@ -10,8 +10,11 @@ import (
 type Error struct {
 	File string // base name as given to Parse, or the path given to Load
 	Line int    // 1-based; 0 when the problem has no place in the file
-	Path string // field path; empty for whole-document problems
-	Msg  string // what is wrong and what was expected
+	// Column is 1-based where known (0 otherwise). Error() leaves it out:
+	// file:line is what a person reads; tools may use the column.
+	Column int
+	Path   string // field path; empty for whole-document problems
+	Msg    string // what is wrong and what was expected
 }
 
 // Error formats as "configs: FILE:LINE: PATH MSG".

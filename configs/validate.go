@@ -23,13 +23,15 @@ type validator struct {
 
 func (v *validator) given(path string) bool { return v.d.set[path] }
 
-func (v *validator) line(path string) int {
+// place is the line and column of a field, or of its nearest enclosing
+// field when it is not in the file.
+func (v *validator) place(path string) (line, col int) {
 	for {
 		if l, ok := v.d.lines[path]; ok {
-			return l
+			return l, v.d.cols[path]
 		}
 		if path == "" {
-			return 0
+			return 0, 0
 		}
 		path = parentPath(path)
 	}
@@ -44,7 +46,8 @@ func parentPath(p string) string {
 }
 
 func (v *validator) fail(path, format string, args ...any) {
-	v.d.errorf(v.line(path), path, format, args...)
+	line, col := v.place(path)
+	v.d.errorAt(line, col, path, format, args...)
 }
 
 func sensorPath(i int, key string) string {
@@ -116,6 +119,8 @@ func (v *validator) broker() {
 	u, err := url.Parse(b.URL)
 	scheme := ""
 	switch {
+	case b.URL == "":
+		v.fail("broker.url", "is empty; expected e.g. tcp://127.0.0.1:1883")
 	case err != nil:
 		v.fail("broker.url", "%s is not a URL; expected e.g. tcp://127.0.0.1:1883", clip(b.URL))
 	case u.Scheme != "tcp" && u.Scheme != "ssl" && u.Scheme != "ws" && u.Scheme != "wss":
