@@ -44,7 +44,7 @@ func NewTriaWork(n, k int) *TriaWork {
 // with L·Lᵀ = A·Aᵀ for the n×k pre-array A (row-major, k ≥ n): the "array
 // form" of square-root filtering (Kailath, Sayed & Hassibi 2000, §12.3),
 // realised as the LQ factorisation A = L·Q with Householder reflections
-// (LAPACK dgelqf). A is overwritten. L may not alias A. It fails with
+// (LAPACK dgelqf; a plain loop for small arrays, see smallLQ). A is overwritten. L may not alias A. It fails with
 // ErrNotPosDef when A·Aᵀ is numerically singular (|L_ii| ≤ k·ε·‖row i of
 // A‖), and with ErrNonFinite on NaN/Inf, leaving L untouched.
 func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
@@ -53,34 +53,127 @@ func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 	}
 	// Row norms before the factorisation judge rank: the diagonal L_ii is the
 	// part of row i orthogonal to the rows above it, and below k·ε·‖row i‖
-	// it is rounding noise.
+	// it is rounding noise. A NaN or Inf entry makes its row norm non-finite.
 	for i := 0; i < n; i++ {
-		w.tol[i] = float64(k) * 0x1p-52 * blas64.Nrm2(blas64.Vector{N: k, Inc: 1, Data: A[i*k : i*k+k]})
+		nrm := rowNorm(A[i*k : i*k+k])
+		if !(nrm <= math.MaxFloat64) {
+			return fmt.Errorf("%w: pre-array row %d", ErrNonFinite, i)
+		}
+		w.tol[i] = float64(k) * 0x1p-52 * nrm
 	}
-	lapack64.Gelqf(blas64.General{Rows: n, Cols: k, Stride: k, Data: A[:n*k]}, w.tau[:n], w.work, len(w.work))
+	if k <= smallLQ {
+		householderLQ(A, n, k)
+	} else {
+		lapack64.Gelqf(blas64.General{Rows: n, Cols: k, Stride: k, Data: A[:n*k]}, w.tau[:n], w.work, len(w.work))
+	}
+	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal can be
+	// made positive column by column; w.tau is free again and holds signs.
+	sgn := w.tau[:n]
 	for i := 0; i < n; i++ {
+		d := A[i*k+i]
 		if !finite(A[i*k : i*k+i+1]) {
 			return fmt.Errorf("%w: triangularised pre-array row %d", ErrNonFinite, i)
 		}
-		if !(math.Abs(A[i*k+i]) > w.tol[i]) {
+		if !(math.Abs(d) > w.tol[i]) {
 			return fmt.Errorf("%w: pre-array rank deficient at column %d", ErrNotPosDef, i)
 		}
+		sgn[i] = math.Copysign(1, d)
 	}
-	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal can be
-	// made positive column by column.
 	for i := 0; i < n; i++ {
-		for j := 0; j <= i; j++ {
-			v := A[i*k+j]
-			if A[j*k+j] < 0 {
-				v = -v
-			}
-			L[i*n+j] = v
+		row := L[i*n : i*n+n]
+		src := A[i*k : i*k+i+1]
+		for j, v := range src {
+			row[j] = sgn[j] * v
 		}
 		for j := i + 1; j < n; j++ {
-			L[i*n+j] = 0
+			row[j] = 0
 		}
 	}
 	return nil
+}
+
+// mulLower writes A·S into dst (row stride ds) for the r×n matrix A and the
+// n×n lower-triangular S, skipping S's zero upper part. A plain loop: for
+// these sizes blas64.Gemm's dispatch costs more than the arithmetic.
+func mulLower(dst []float64, ds int, A []float64, r, n int, S []float64) {
+	for i := 0; i < r; i++ {
+		a := A[i*n : i*n+n]
+		d := dst[i*ds : i*ds+n]
+		for j := 0; j < n; j++ {
+			var s float64
+			for l := j; l < n; l++ {
+				s += a[l] * S[l*n+j]
+			}
+			d[j] = s
+		}
+	}
+}
+
+// smallLQ is the widest pre-array handled by householderLQ instead of
+// lapack64.Gelqf. Measured (BenchmarkTriangularize, go test -bench
+// Triangularize): for the 5×15, 3×13, 4×8 and 6×6 arrays of the filters,
+// Gelqf's per-reflector overhead (Dlarfg, Iladlc/Iladlr scans, Dgemv and
+// Dger through the BLAS interface) costs several times the arithmetic and
+// put the SR-KF CV step over its 0.5 µs budget; the plain loop below is the
+// same Householder algorithm without the indirection.
+const smallLQ = 32
+
+// householderLQ overwrites the lower triangle of the n×k row-major A (k ≥ n)
+// with L of the LQ factorisation A = L·Q, using Householder reflections from
+// the right (Golub & Van Loan, Matrix Computations, §5.1–5.2, transposed).
+// Entries above the diagonal are left holding reflector data.
+func householderLQ(A []float64, n, k int) {
+	for i := 0; i < n; i++ {
+		ri := A[i*k+i : i*k+k]
+		nrm := rowNorm(ri)
+		if nrm == 0 || math.IsNaN(nrm) || math.IsInf(nrm, 0) {
+			// A zero remainder is already triangular; a non-finite one is
+			// reported by the caller.
+			continue
+		}
+		x0 := ri[0]
+		alpha := -math.Copysign(nrm, x0)
+		// v = ri − α·e₁ and H = I − v·vᵀ/(nrm·(nrm + |x0|)). Kept as
+		// u = v/nrm and τ = nrm/(nrm + |x0|) ∈ [½, 1] so that H = I − τ·u·uᵀ
+		// and no product of two tiny or huge numbers is ever formed.
+		tau := nrm / (nrm + math.Abs(x0))
+		ri[0] = x0 - alpha
+		if inv := 1 / nrm; inv <= math.MaxFloat64 {
+			for j := range ri {
+				ri[j] *= inv
+			}
+		} else {
+			for j := range ri {
+				ri[j] /= nrm
+			}
+		}
+		for r := i + 1; r < n; r++ {
+			rr := A[r*k+i : r*k+k]
+			rr = rr[:len(ri)]
+			var d float64
+			for j, uj := range ri {
+				d += rr[j] * uj
+			}
+			d *= tau
+			for j, uj := range ri {
+				rr[j] -= d * uj
+			}
+		}
+		ri[0] = alpha
+	}
+}
+
+// rowNorm is the Euclidean norm, rescaled only when the plain sum of
+// squares under- or overflows.
+func rowNorm(x []float64) float64 {
+	var ss float64
+	for _, v := range x {
+		ss += v * v
+	}
+	if ss > 0x1p-900 && ss < 0x1p900 {
+		return math.Sqrt(ss)
+	}
+	return blas64.Nrm2(blas64.Vector{N: len(x), Inc: 1, Data: x})
 }
 
 // Cholesky writes into L (n×n) the lower-triangular factor of the symmetric
@@ -149,13 +242,14 @@ func CheckSqrt(S []float64, n int) error {
 	return nil
 }
 
+// finite reports whether every entry is finite: x·0 is 0 for finite x and
+// NaN for ±Inf and NaN, so one branch-free pass suffices.
 func finite(v []float64) bool {
+	var s float64
 	for _, x := range v {
-		if math.IsNaN(x) || math.IsInf(x, 0) {
-			return false
-		}
+		s += x * 0
 	}
-	return true
+	return s == 0
 }
 
 // CholUpdate overwrites the lower-triangular L (n×n, positive diagonal) with

@@ -3,9 +3,6 @@ package filters
 import (
 	"fmt"
 	"math"
-
-	"gonum.org/v1/gonum/blas"
-	"gonum.org/v1/gonum/blas/blas64"
 )
 
 // SREKF is the square-root extended Kalman filter in QR "array" form
@@ -28,8 +25,8 @@ type SREKF struct {
 	innovation
 
 	// Predict workspace.
-	xp, F, G, FS, pre, Sp []float64
-	triP                  *TriaWork
+	xp, F, G, pre, Sp []float64
+	triP              *TriaWork
 
 	// Update workspace, sized for mCap.
 	H, preU, postU, Spost []float64
@@ -49,7 +46,6 @@ func NewSREKF(f MotionModel) (*SREKF, error) {
 		xp:   make([]float64, n),
 		F:    make([]float64, n*n),
 		G:    make([]float64, n*n),
-		FS:   make([]float64, n*n),
 		pre:  make([]float64, n*2*n),
 		Sp:   make([]float64, n*n),
 		triP: NewTriaWork(n, 2*n),
@@ -88,15 +84,9 @@ func (k *SREKF) Predict(dt float64) error {
 	if !finite(k.xp) || !finite(k.F) || !finite(k.G) {
 		return fmt.Errorf("%w: motion model output at dt=%g", ErrNonFinite, dt)
 	}
-	// FS = F·S; S is triangular but a general product is simplest and
-	// n ≤ 6 here.
-	blas64.Gemm(blas.NoTrans, blas.NoTrans, 1,
-		blas64.General{Rows: n, Cols: n, Stride: n, Data: k.F},
-		blas64.General{Rows: n, Cols: n, Stride: n, Data: k.S},
-		0, blas64.General{Rows: n, Cols: n, Stride: n, Data: k.FS})
 	w := 2 * n
+	mulLower(k.pre, w, k.F, n, n, k.S)
 	for i := 0; i < n; i++ {
-		copy(k.pre[i*w:i*w+n], k.FS[i*n:i*n+n])
 		copy(k.pre[i*w+n:i*w+w], k.G[i*n:i*n+n])
 	}
 	if err := Triangularize(k.Sp, k.pre, n, w, k.triP); err != nil {
@@ -135,10 +125,7 @@ func (k *SREKF) Prepare(h MeasurementModel, Rs []float64) error {
 		copy(pre[i*N:i*N+m], Rs[i*m:i*m+m])
 	}
 	// H·S into the top-right block.
-	blas64.Gemm(blas.NoTrans, blas.NoTrans, 1,
-		blas64.General{Rows: m, Cols: n, Stride: n, Data: H},
-		blas64.General{Rows: n, Cols: n, Stride: n, Data: k.S},
-		0, blas64.General{Rows: m, Cols: n, Stride: N, Data: pre[m:]})
+	mulLower(pre[m:], N, H, m, n, k.S)
 	for i := 0; i < n; i++ {
 		copy(pre[(m+i)*N+m:(m+i)*N+N], k.S[i*n:i*n+n])
 	}
