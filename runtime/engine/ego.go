@@ -56,7 +56,7 @@ const (
 func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 	st := &e.st
 	d := &sc.dets[0]
-	var z [2]float64
+	z := e.ws.z[:2] // workspace: a local array would escape through the interface
 	switch s.kind {
 	case kindOdometry:
 		z[0], z[1] = d.z[0], d.z[1]
@@ -67,7 +67,9 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 	}
 	if !st.egoInit {
 		p := e.fixedPose
-		var x0, S0 [25]float64
+		x0, S0 := e.ws.x0[:5], e.ws.S0[:25]
+		clear(x0)
+		clear(S0)
 		x0[0], x0[1], x0[3] = p.X, p.Y, p.Yaw
 		if s.kind == kindGNSS {
 			c, sn := math.Cos(p.Yaw), math.Sin(p.Yaw)
@@ -75,7 +77,7 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 			x0[1] = z[1] - (sn*s.mount.X + c*s.mount.Y)
 		}
 		S0[0], S0[6], S0[12], S0[18], S0[24] = egoInitPosSD, egoInitPosSD, egoInitSpeedSD, egoInitYawSD, egoInitYawRateSD
-		if err := st.ego.Init(x0[:5], S0[:]); err != nil {
+		if err := st.ego.Init(x0, S0); err != nil {
 			e.counters.FilterErrors++
 			return
 		}
@@ -98,7 +100,7 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 		e.counters.FilterErrors++
 		return
 	}
-	nis, err := st.ego.Update(z[:])
+	nis, err := st.ego.Update(z)
 	if err != nil {
 		e.counters.FilterErrors++
 		return

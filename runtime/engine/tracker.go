@@ -15,7 +15,7 @@ type workspace struct {
 	detCov   [][4]float64
 	detOK    []bool
 	detGated []bool // inside some track's birth gate
-	order    []int // usable detections sorted by site x
+	order    []int  // usable detections sorted by site x
 
 	vis      []bool
 	hit      []bool
@@ -35,6 +35,8 @@ type workspace struct {
 	local          []int // track or detection → local index in its cluster
 	cost           []float64
 	rowCol         []int
+	x0             [6]float64
+	S0             [36]float64
 	z              [3]float64
 }
 
@@ -415,7 +417,10 @@ func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
 		st.flt = append(st.flt, f)
 	}
 	n := e.motion.Dim()
-	var x0, S0 [36]float64
+	// Workspace arrays: a local one would escape through the interface call.
+	x0, S0 := e.ws.x0[:], e.ws.S0[:]
+	clear(x0)
+	clear(S0)
 	x0[0], x0[1] = pos[0], pos[1]
 	// Position block: Cholesky of the 2×2 detection covariance.
 	l00 := math.Sqrt(c[0])
