@@ -185,7 +185,7 @@ var kindNoise = map[string]string{
 	KindRangeBearing:     "range m, bearing rad",
 	KindRangeBearingRate: "range m, bearing rad, range rate m/s",
 	KindPinhole:          "image column px, range m",
-	KindGNSS:             "north m, east m",
+	KindGNSS:             "east m, north m",
 	KindOdometry:         "speed m/s, yaw rate rad/s",
 }
 
