@@ -46,39 +46,43 @@ func NewTriaWork(n, k int) *TriaWork {
 // realised as the LQ factorisation A = L·Q with Householder reflections
 // (LAPACK dgelqf; a plain loop for small arrays, see smallLQ). A is overwritten. L may not alias A. It fails with
 // ErrNotPosDef when A·Aᵀ is numerically singular (|L_ii| ≤ k·ε·‖row i of
-// A‖), and with ErrNonFinite on NaN/Inf, leaving L untouched.
+// L‖₁), and with ErrNonFinite on NaN/Inf, leaving L untouched.
 func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 	if k < n || len(A) < n*k || len(L) < n*n || w == nil || w.n < n || len(w.work) < n {
 		return fmt.Errorf("%w: Triangularize %d×%d", ErrDimension, n, k)
 	}
-	// Row norms before the factorisation judge rank: the diagonal L_ii is the
-	// part of row i orthogonal to the rows above it, and below k·ε·‖row i‖
-	// it is rounding noise. A NaN or Inf entry makes its row norm non-finite.
-	for i := 0; i < n; i++ {
-		nrm := rowNorm(A[i*k : i*k+k])
-		if !(nrm <= math.MaxFloat64) {
-			return fmt.Errorf("%w: pre-array row %d", ErrNonFinite, i)
-		}
-		w.tol[i] = float64(k) * 0x1p-52 * nrm
-	}
 	if k <= smallLQ {
 		householderLQ(A, n, k)
 	} else {
+		if !finite(A[:n*k]) {
+			return fmt.Errorf("%w: pre-array", ErrNonFinite)
+		}
 		lapack64.Gelqf(blas64.General{Rows: n, Cols: k, Stride: k, Data: A[:n*k]}, w.tau[:n], w.work, len(w.work))
 	}
-	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal can be
-	// made positive column by column; w.tau is free again and holds signs.
+	// Orthogonal transformations from the right keep each row's norm, so
+	// row i of L has the norm of row i of A. L_ii is the part of that row
+	// orthogonal to the rows above; below k·ε·‖row‖ it is rounding noise and
+	// A·Aᵀ is numerically singular. The 1-norm (≥ the 2-norm) makes the test
+	// a little stricter and needs no square root.
 	sgn := w.tau[:n]
+	tol := float64(k) * 0x1p-52
 	for i := 0; i < n; i++ {
-		d := A[i*k+i]
-		if !finite(A[i*k : i*k+i+1]) {
-			return fmt.Errorf("%w: triangularised pre-array row %d", ErrNonFinite, i)
+		row := A[i*k : i*k+i+1]
+		var l1 float64
+		for _, v := range row {
+			l1 += math.Abs(v)
 		}
-		if !(math.Abs(d) > w.tol[i]) {
+		if !(l1 <= math.MaxFloat64) {
+			return fmt.Errorf("%w: pre-array row %d", ErrNonFinite, i)
+		}
+		d := row[i]
+		if !(math.Abs(d) > tol*l1) {
 			return fmt.Errorf("%w: pre-array rank deficient at column %d", ErrNotPosDef, i)
 		}
 		sgn[i] = math.Copysign(1, d)
 	}
+	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal is made
+	// positive column by column (w.tau is free again and holds the signs).
 	for i := 0; i < n; i++ {
 		row := L[i*n : i*n+n]
 		src := A[i*k : i*k+i+1]
@@ -126,35 +130,40 @@ func householderLQ(A []float64, n, k int) {
 	for i := 0; i < n; i++ {
 		ri := A[i*k+i : i*k+k]
 		nrm := rowNorm(ri)
-		if nrm == 0 || math.IsNaN(nrm) || math.IsInf(nrm, 0) {
-			// A zero remainder is already triangular; a non-finite one is
-			// reported by the caller.
+		if !(nrm <= math.MaxFloat64) {
+			// Non-finite row: poison the diagonal so the caller reports it.
+			ri[0] = math.NaN()
 			continue
+		}
+		if nrm == 0 {
+			continue // already triangular; the caller reports the rank
 		}
 		x0 := ri[0]
 		alpha := -math.Copysign(nrm, x0)
-		// v = ri − α·e₁ and H = I − v·vᵀ/(nrm·(nrm + |x0|)). Kept as
-		// u = v/nrm and τ = nrm/(nrm + |x0|) ∈ [½, 1] so that H = I − τ·u·uᵀ
-		// and no product of two tiny or huge numbers is ever formed.
-		tau := nrm / (nrm + math.Abs(x0))
+		// v = ri − α·e₁ and H = I − v·vᵀ/(nrm·(nrm + |x0|)). For extreme
+		// scales v is kept as u = v/nrm with τ = nrm/(nrm + |x0|) ∈ [½, 1],
+		// H = I − τ·u·uᵀ, so no product of two tiny or huge numbers forms.
 		ri[0] = x0 - alpha
-		if inv := 1 / nrm; inv <= math.MaxFloat64 {
-			for j := range ri {
-				ri[j] *= inv
-			}
+		var tau float64
+		if nrm > 0x1p-400 && nrm < 0x1p400 {
+			// Usual range: H = I − β·v·vᵀ, β = 1/(nrm·(nrm + |x0|)).
+			tau = 1 / (nrm * (nrm + math.Abs(x0)))
 		} else {
-			for j := range ri {
-				ri[j] /= nrm
+			tau = nrm / (nrm + math.Abs(x0))
+			if inv := 1 / nrm; inv <= math.MaxFloat64 {
+				for j := range ri {
+					ri[j] *= inv
+				}
+			} else {
+				for j := range ri {
+					ri[j] /= nrm
+				}
 			}
 		}
 		for r := i + 1; r < n; r++ {
 			rr := A[r*k+i : r*k+k]
+			d := tau * dot(rr, ri)
 			rr = rr[:len(ri)]
-			var d float64
-			for j, uj := range ri {
-				d += rr[j] * uj
-			}
-			d *= tau
 			for j, uj := range ri {
 				rr[j] -= d * uj
 			}
@@ -163,13 +172,29 @@ func householderLQ(A []float64, n, k int) {
 	}
 }
 
-// rowNorm is the Euclidean norm, rescaled only when the plain sum of
-// squares under- or overflows.
-func rowNorm(x []float64) float64 {
-	var ss float64
-	for _, v := range x {
-		ss += v * v
+// dot is Σ a_j·b_j over len(a) (b at least as long). Four accumulators
+// break the floating-point add latency chain, which otherwise dominates at
+// these lengths.
+func dot(a, b []float64) float64 {
+	b = b[:len(a)]
+	var s0, s1, s2, s3 float64
+	j := 0
+	for ; j+4 <= len(a); j += 4 {
+		s0 += a[j] * b[j]
+		s1 += a[j+1] * b[j+1]
+		s2 += a[j+2] * b[j+2]
+		s3 += a[j+3] * b[j+3]
 	}
+	for ; j < len(a); j++ {
+		s0 += a[j] * b[j]
+	}
+	return (s0 + s1) + (s2 + s3)
+}
+
+// rowNorm is the Euclidean norm, rescaled only when the plain sum of
+// squares under- or overflows. NaN or Inf entries give a non-finite norm.
+func rowNorm(x []float64) float64 {
+	ss := dot(x, x)
 	if ss > 0x1p-900 && ss < 0x1p900 {
 		return math.Sqrt(ss)
 	}
@@ -270,12 +295,16 @@ func CholUpdate(L []float64, n int, x []float64) error {
 func cholUpdate(L []float64, n int, x []float64) {
 	for k := 0; k < n; k++ {
 		lkk := L[k*n+k]
-		r := math.Hypot(lkk, x[k])
-		c := r / lkk
-		s := x[k] / lkk
+		// Plain √(a²+b²) rather than math.Hypot: square-root covariance
+		// entries are nowhere near the overflow range and Hypot costs more.
+		r := math.Sqrt(lkk*lkk + x[k]*x[k])
+		inv := 1 / lkk
+		c := r * inv
+		s := x[k] * inv
+		ic := lkk / r
 		L[k*n+k] = r
 		for i := k + 1; i < n; i++ {
-			lik := (L[i*n+k] + s*x[i]) / c
+			lik := (L[i*n+k] + s*x[i]) * ic
 			L[i*n+k] = lik
 			x[i] = c*x[i] - s*lik
 		}
@@ -317,28 +346,21 @@ func CholDowndate(L []float64, n int, x []float64, w *DowndateWork) error {
 func cholDowndate(L []float64, n int, x, c, s []float64) bool {
 	// a = L⁻¹ x (forward substitution; x becomes a).
 	for j := 0; j < n; j++ {
-		v := x[j]
-		for i := 0; i < j; i++ {
-			v -= L[j*n+i] * x[i]
-		}
-		x[j] = v / L[j*n+j]
+		x[j] = (x[j] - dot(x[:j], L[j*n:])) / L[j*n+j]
 	}
-	var nrm2 float64
-	for j := 0; j < n; j++ {
-		nrm2 += x[j] * x[j]
-	}
+	nrm2 := dot(x[:n], x)
 	if !(nrm2 < 1) {
 		return false
 	}
+	// dchdd scales each pair by alpha + |a_i| against overflow; here
+	// alpha ≥ √(1−‖a‖²) > 1e-8 and |a_i| < 1, so the plain form is safe.
 	alpha := math.Sqrt(1 - nrm2)
 	for i := n - 1; i >= 0; i-- {
-		scale := alpha + math.Abs(x[i])
-		a := alpha / scale
-		b := x[i] / scale
-		nrm := math.Sqrt(a*a + b*b)
-		c[i] = a / nrm
-		s[i] = b / nrm
-		alpha = scale * nrm
+		r := math.Sqrt(alpha*alpha + x[i]*x[i])
+		inv := 1 / r
+		c[i] = alpha * inv
+		s[i] = x[i] * inv
+		alpha = r
 	}
 	// In dchdd's upper-triangular R, r(i,j) = L[j,i] here.
 	for j := 0; j < n; j++ {

@@ -3,9 +3,6 @@ package filters
 import (
 	"fmt"
 	"math"
-
-	"gonum.org/v1/gonum/blas"
-	"gonum.org/v1/gonum/blas/blas64"
 )
 
 // UTParams are the scaled unscented transform's parameters (Wan & van der
@@ -184,22 +181,33 @@ func (u *SRUKF) Predict(dt float64) error {
 	if !finite(u.Y[:np*n]) || !finite(u.G) {
 		return fmt.Errorf("%w: motion model output at dt=%g", ErrNonFinite, dt)
 	}
-	// Mean relative to the zeroth point: Σ W_m = 1, so x̄ = Y_0 + Σ W_i (Y_i ⊖ Y_0).
+	// Deviations D_i = Y_i ⊖ Y_0 relative to the zeroth point, in place of
+	// Y_1..Y_2n. Σ W_m = 1, so the mean offset is m̄ = Σ W_i·D_i and
+	// x̄ = Y_0 + m̄; the deviations from the mean are D_i − m̄ (and −m̄ for
+	// the zeroth point).
 	y0 := u.Y[:n]
-	copy(u.xp, y0)
+	mb := u.d
+	for r := range mb {
+		mb[r] = 0
+	}
 	for i := 1; i < np; i++ {
-		u.f.Residual(u.d, u.Y[i*n:(i+1)*n], y0)
-		for r := 0; r < n; r++ {
-			u.xp[r] += u.w.wi * u.d[r]
+		yi := u.Y[i*n : (i+1)*n]
+		u.f.Residual(yi, yi, y0)
+		for r, v := range yi {
+			mb[r] += v
 		}
+	}
+	for r := range mb {
+		mb[r] *= u.w.wi
+		u.xp[r] = y0[r] + mb[r]
 	}
 	u.f.Normalize(u.xp)
 	sw := math.Sqrt(u.w.wi)
 	k := 3 * n
 	for i := 1; i < np; i++ {
-		u.f.Residual(u.d, u.Y[i*n:(i+1)*n], u.xp)
-		for r := 0; r < n; r++ {
-			u.pre[r*k+i-1] = sw * u.d[r]
+		yi := u.Y[i*n : (i+1)*n]
+		for r, v := range yi {
+			u.pre[r*k+i-1] = sw * (v - mb[r])
 		}
 	}
 	for r := 0; r < n; r++ {
@@ -208,12 +216,14 @@ func (u *SRUKF) Predict(dt float64) error {
 	if err := Triangularize(u.Sp, u.pre, n, k, u.triP); err != nil {
 		return fmt.Errorf("predict: %w", err)
 	}
-	u.f.Residual(u.v, y0, u.xp)
+	for r := range mb {
+		u.v[r] = -mb[r]
+	}
 	if err := u.rankOne(u.Sp, n, u.v, u.c, u.s); err != nil {
 		return fmt.Errorf("predict: %w", err)
 	}
-	if err := CheckSqrt(u.Sp, n); err != nil {
-		return fmt.Errorf("predict: %w", err)
+	if !finite(u.Sp) {
+		return fmt.Errorf("%w: predicted square root", ErrNonFinite)
 	}
 	copy(u.x, u.xp)
 	copy(u.S, u.Sp)
@@ -240,17 +250,33 @@ func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
 	if !finite(Z) {
 		return fmt.Errorf("%w: measurement model output", ErrNonFinite)
 	}
+	// As in Predict: Dz_i = (Z_i ⊖ Z_0) − m̄ with m̄ = Σ W_i (Z_i ⊖ Z_0),
+	// ẑ = Z_0 + m̄ and Dz_0 = −m̄.
 	zhat, e, Dz := u.zhat[:m], u.e[:m], u.Dz[:np*m]
 	z0 := Z[:m]
-	copy(zhat, z0)
+	mb := Dz[:m]
+	for r := range mb {
+		mb[r] = 0
+	}
 	for i := 1; i < np; i++ {
-		h.Residual(e, Z[i*m:(i+1)*m], z0)
-		for r := 0; r < m; r++ {
-			zhat[r] += u.w.wi * e[r]
+		di := Dz[i*m : (i+1)*m]
+		h.Residual(di, Z[i*m:(i+1)*m], z0)
+		for r, v := range di {
+			mb[r] += v
 		}
 	}
-	for i := 0; i < np; i++ {
-		h.Residual(Dz[i*m:(i+1)*m], Z[i*m:(i+1)*m], zhat)
+	for r := range mb {
+		mb[r] *= u.w.wi
+		zhat[r] = z0[r] + mb[r]
+	}
+	for i := 1; i < np; i++ {
+		di := Dz[i*m : (i+1)*m]
+		for r := range di {
+			di[r] -= mb[r]
+		}
+	}
+	for r := range mb {
+		mb[r] = -mb[r] // Dz_0
 	}
 	k := 2*n + m
 	pre := u.preU[:m*k]
@@ -271,11 +297,14 @@ func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
 	if err := u.rankOne(Sy, m, e, u.cm, u.sm); err != nil {
 		return fmt.Errorf("update: %w", err)
 	}
-	if err := CheckSqrt(Sy, m); err != nil {
-		return fmt.Errorf("update: %w", err)
+	if !finite(Sy) {
+		return fmt.Errorf("%w: innovation square root", ErrNonFinite)
 	}
 	// P_xz = Σ W_i (X_i − x)(Z_i − ẑ)ᵀ with X_{i}−x = ±γ·S_i, and the zeroth
-	// term vanishes: P_xz = W_i·γ·S·(Dz_{1..n} − Dz_{n+1..2n}).
+	// term vanishes: P_xz = W_i·γ·S·(Dz_{1..n} − Dz_{n+1..2n}). Then
+	// K̄ = P_xz·Sy⁻ᵀ, i.e. each row k of K̄ solves Sy·kᵀ = (row of P_xz)ᵀ.
+	// Plain loops: at n ≤ 6, m ≤ 3 blas64.Gemm/Trsm dispatch cost more than
+	// the arithmetic (measured with BenchmarkSRUKFUpdate).
 	diff := u.diff[:n*m]
 	for j := 0; j < n; j++ {
 		for r := 0; r < m; r++ {
@@ -283,14 +312,21 @@ func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
 		}
 	}
 	Kbar := u.Kbar[:n*m]
-	blas64.Gemm(blas.NoTrans, blas.NoTrans, u.w.wi*u.w.gamma,
-		blas64.General{Rows: n, Cols: n, Stride: n, Data: u.S},
-		blas64.General{Rows: n, Cols: m, Stride: m, Data: diff},
-		0, blas64.General{Rows: n, Cols: m, Stride: m, Data: Kbar})
-	// K̄ = P_xz·Sy⁻ᵀ.
-	blas64.Trsm(blas.Right, blas.Trans, 1,
-		blas64.Triangular{Uplo: blas.Lower, Diag: blas.NonUnit, N: m, Stride: m, Data: Sy},
-		blas64.General{Rows: n, Cols: m, Stride: m, Data: Kbar})
+	g := u.w.wi * u.w.gamma
+	for i := 0; i < n; i++ {
+		krow := Kbar[i*m : i*m+m]
+		srow := u.S[i*n : i*n+i+1]
+		for r := range krow {
+			var acc float64
+			for l, sl := range srow {
+				acc += sl * diff[l*m+r]
+			}
+			krow[r] = g * acc
+		}
+		for r := 0; r < m; r++ {
+			krow[r] = (krow[r] - dot(krow[:r], Sy[r*m:])) / Sy[r*m+r]
+		}
+	}
 	if !finite(Kbar) {
 		return fmt.Errorf("%w: gain", ErrNonFinite)
 	}

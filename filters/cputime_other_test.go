@@ -1,0 +1,5 @@
+//go:build !linux
+
+package filters_test
+
+func threadCPUNanos() int64 { return -1 }
