@@ -126,6 +126,7 @@ type Engine struct {
 	mkEgo          func() (filters.Filter, error)
 	site           geo.Local
 	siteAlt        float64
+	egoActive      bool // this scan's noise carries the ego pose uncertainty
 	odo            *odometryModel
 	gnss           *gnssModel
 

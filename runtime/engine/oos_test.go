@@ -138,3 +138,51 @@ func TestOutOfSequenceEqualsInOrder(t *testing.T) {
 		}
 	})
 }
+
+// TestOutOfSequenceMovingPlatform: the same exactness with a moving
+// platform, where a late odometry or GNSS message changes the ego estimate
+// under every later detection, so the rewind must redo those too.
+func TestOutOfSequenceMovingPlatform(t *testing.T) {
+	rapid.Check(t, func(rt *rapid.T) {
+		seed := rapid.Uint64().Draw(rt, "seed")
+		cfg, msgs, _ := movingScene(rt, seed, 3)
+		lag := int64(cfg.Timing.LagMS * 1e6)
+		inOrder, err := New(cfg, Options{})
+		if err != nil {
+			rt.Fatal(err)
+		}
+		for i := range msgs {
+			if err := inOrder.Ingest(&msgs[i], msgs[i].TNs); err != nil {
+				rt.Fatal(err)
+			}
+		}
+		r := rand.New(rand.NewPCG(seed, 99))
+		type arr struct {
+			i int
+			t int64
+		}
+		order := make([]arr, len(msgs))
+		for i := range msgs {
+			order[i] = arr{i, msgs[i].TNs + r.Int64N(lag)}
+		}
+		sort.SliceStable(order, func(x, y int) bool { return order[x].t < order[y].t })
+		late, err := New(cfg, Options{})
+		if err != nil {
+			rt.Fatal(err)
+		}
+		for _, o := range order {
+			if err := late.Ingest(&msgs[o.i], o.t); err != nil {
+				rt.Fatalf("message %d: %v", o.i, err)
+			}
+		}
+		var want, got transport.TracksMsg
+		inOrder.Flush(&want)
+		late.Flush(&got)
+		if len(want.Tracks) == 0 || want.Ego == nil || late.Counters().Rewinds == 0 {
+			rt.Fatalf("scenario too weak: %d tracks, %d rewinds", len(want.Tracks), late.Counters().Rewinds)
+		}
+		if d := sameTracks(&want, &got); d != "" {
+			rt.Fatalf("late arrivals changed the result on a moving platform: %s", d)
+		}
+	})
+}

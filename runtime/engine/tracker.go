@@ -35,6 +35,10 @@ type workspace struct {
 	local          []int // track or detection → local index in its cluster
 	cost           []float64
 	rowCol         []int
+	trackCego      [][9]float64 // ego pose uncertainty in measurement space, per track
+	rsTmp          [9]float64
+	egoP3          [9]float64 // covariance of the ego [px, py, yaw]
+	pert           [3]sensorGeom
 	x0             [6]float64
 	S0             [36]float64
 	z              [3]float64
@@ -136,6 +140,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	ws := &e.ws
 	g := s.geom
 	g.SetPlatform(e.platformPose())
+	egoUnc := e.egoUncertainty(g)
 	n := e.motion.Dim()
 	D := len(sc.dets)
 	T := len(st.recs)
@@ -155,6 +160,9 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 		if g.Inverse(d.z[:m], R[:m*m], &ws.detPos[j], &ws.detCov[j]) {
 			ws.detOK[j] = true
 			c := &ws.detCov[j]
+			if egoUnc {
+				e.addEgoToSite(d.z[:m], R[:m*m], ws.detPos[j], c)
+			}
 			detEig = math.Max(detEig, maxEig2(c[0], c[1], c[3]))
 			ws.order = append(ws.order, j)
 		}
@@ -174,6 +182,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	ws.lastPrep = growInt(ws.lastPrep, T)
 	ws.trackDet = growInt(ws.trackDet, T)
 	ws.trackRs = grow(ws.trackRs, T)
+	ws.trackCego = grow(ws.trackCego, T)
 	ws.posVar = grow(ws.posVar, T)
 	ws.jpv = grow(ws.jpv, 4*n)
 	ws.js = grow(ws.js, 2*n)
@@ -190,6 +199,9 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 			continue
 		}
 		s.noiseSqrt(&ws.trackRs[i], math.Hypot(px-g.sx, py-g.sy))
+		if egoUnc && !e.addEgoToMeas(g, i, m) {
+			continue
+		}
 		if f.Prepare(g, ws.trackRs[i][:m*m]) != nil {
 			e.counters.FilterErrors++
 			continue
@@ -331,7 +343,20 @@ func (e *Engine) prepareFor(f filters.Filter, g *sensorGeom, s *sensorRT, i, j i
 	if want < 0 {
 		err = f.Prepare(g, ws.trackRs[i][:m*m])
 	} else {
-		err = f.Prepare(g, d.rs[:m*m])
+		rs := d.rs[:m*m]
+		if e.egoActive {
+			// The detection's own R plus the ego pose uncertainty.
+			var Rsum [9]float64
+			for k := 0; k < m*m; k++ {
+				Rsum[k] = d.r[k] + ws.trackCego[i][k]
+			}
+			if !chol(ws.rsTmp[:m*m], Rsum[:m*m], m) {
+				ws.lastPrep[i] = -2
+				return false
+			}
+			rs = ws.rsTmp[:m*m]
+		}
+		err = f.Prepare(g, rs)
 	}
 	if err != nil {
 		e.counters.FilterErrors++
@@ -563,6 +588,112 @@ func (e *Engine) solveCluster(ps []pair, T int, missCost float64) {
 	for k, c := range ws.rowCol {
 		if c < nd {
 			ws.trackDet[ws.ctracks[k]] = ws.cdets[c]
+		}
+	}
+}
+
+// egoUncertainty prepares, on a moving platform, the ego pose covariance
+// and three copies of the sensor geometry with the platform pose nudged in
+// x, y and yaw, for first-order propagation of the ego uncertainty into
+// each measurement's noise (the usual remedy when the sensor pose itself is
+// estimated: R + G·P_ego·Gᵀ, G = ∂h/∂(ego pose)).
+func (e *Engine) egoUncertainty(g *sensorGeom) bool {
+	e.egoActive = e.platformMoving && e.st.egoInit
+	if !e.egoActive {
+		return false
+	}
+	ws := &e.ws
+	gs := e.st.ego.State()
+	var P [25]float64
+	gs.Covariance(P[:])
+	idx := [3]int{0, 1, 3}
+	for a := 0; a < 3; a++ {
+		for b := 0; b < 3; b++ {
+			ws.egoP3[a*3+b] = P[idx[a]*5+idx[b]]
+		}
+	}
+	base := e.platformPose()
+	for k := 0; k < 3; k++ {
+		ws.pert[k] = *g
+		p := base
+		switch k {
+		case 0:
+			p.X += egoStep
+		case 1:
+			p.Y += egoStep
+		case 2:
+			p.Yaw += egoStep
+		}
+		ws.pert[k].SetPlatform(p)
+	}
+	return true
+}
+
+// egoStep is the finite-difference step for the ego pose Jacobians (m and
+// rad); the functions are smooth on this scale.
+const egoStep = 1e-6
+
+// addEgoToMeas adds G·P_ego·Gᵀ to track i's measurement noise and
+// refactors it. G is by forward differences of h at the predicted target.
+func (e *Engine) addEgoToMeas(g *sensorGeom, i, m int) bool {
+	ws := &e.ws
+	var z0, zk, dz [3]float64
+	var G [9]float64 // m×3
+	g.predictPV(z0[:], ws.pv)
+	for k := 0; k < 3; k++ {
+		ws.pert[k].predictPV(zk[:], ws.pv)
+		g.Residual(dz[:], zk[:], z0[:])
+		for r := 0; r < m; r++ {
+			G[r*3+k] = dz[r] / egoStep
+		}
+	}
+	var R [9]float64
+	rs := &ws.trackRs[i]
+	for a := 0; a < m; a++ {
+		for b := 0; b < m; b++ {
+			var v, c float64
+			for k := 0; k < m; k++ {
+				v += rs[a*m+k] * rs[b*m+k]
+			}
+			for k := 0; k < 3; k++ {
+				for l := 0; l < 3; l++ {
+					c += G[a*3+k] * ws.egoP3[k*3+l] * G[b*3+l]
+				}
+			}
+			ws.trackCego[i][a*m+b] = c
+			R[a*m+b] = v + c
+		}
+	}
+	if !chol(rs[:m*m], R[:m*m], m) {
+		e.counters.FilterErrors++
+		return false
+	}
+	return true
+}
+
+// addEgoToSite adds the ego pose uncertainty to a detection's site
+// position covariance c.
+func (e *Engine) addEgoToSite(z, R []float64, pos [2]float64, c *[4]float64) {
+	ws := &e.ws
+	var G [6]float64 // 2×3
+	var pk [2]float64
+	var ck [4]float64
+	for k := 0; k < 3; k++ {
+		if !ws.pert[k].Inverse(z, R, &pk, &ck) {
+			return
+		}
+		G[k] = (pk[0] - pos[0]) / egoStep
+		G[3+k] = (pk[1] - pos[1]) / egoStep
+	}
+	for a := 0; a < 2; a++ {
+		for b := 0; b < 2; b++ {
+			var v float64
+			for k := 0; k < 3; k++ {
+				for l := 0; l < 3; l++ {
+					v += G[a*3+k] * ws.egoP3[k*3+l] * G[b*3+l]
+				}
+			}
+			c[a*2+b] += v
 		}
 	}
 }
