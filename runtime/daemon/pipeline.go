@@ -16,8 +16,9 @@ import (
 	"go.uber.org/zap"
 )
 
-// Stats are the pipeline's own counters; the engine keeps the fusion ones.
-type Stats struct {
+// PipelineStats are the pipeline's own counters; the engine keeps the
+// fusion ones.
+type PipelineStats struct {
 	Messages    uint64                       // offered to Handle
 	OtherTopic  uint64                       // on a topic no sensor is configured for, ignored
 	Accepted    uint64                       // taken by the engine (late-dropped ones included)
@@ -46,7 +47,7 @@ type Pipeline struct {
 	health transport.HealthMsg
 	tbuf   []byte
 	hbuf   []byte
-	stats  Stats
+	stats  PipelineStats
 
 	confirmed map[uint64]struct{}
 	log       *zap.Logger
@@ -101,7 +102,7 @@ func (p *Pipeline) Topics() []string { return p.filters }
 func (p *Pipeline) Engine() *engine.Engine { return p.eng }
 
 // Stats copies the pipeline counters.
-func (p *Pipeline) Stats() Stats { return p.stats }
+func (p *Pipeline) Stats() PipelineStats { return p.stats }
 
 // PerScan reports whether output follows every processed scan (rate_hz 0)
 // instead of a clock.
@@ -175,6 +176,13 @@ func (p *Pipeline) Flush() ([]byte, bool) {
 		return nil, false
 	}
 	return p.encodeTracks(), true
+}
+
+// releaseBuffers gives up the output buffers after a publish that may still
+// hold one (a timeout inside the MQTT library); the next message allocates.
+func (p *Pipeline) releaseBuffers() {
+	p.tbuf = make([]byte, 0, cap(p.tbuf))
+	p.hbuf = make([]byte, 0, cap(p.hbuf))
 }
 
 // LastTracks is the message most recently written by Advance or Flush.

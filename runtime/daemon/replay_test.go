@@ -135,7 +135,7 @@ func TestReplayFinalMessage(t *testing.T) {
 	// Truth of gatesim at the final stamp: tractor A from (−3, 8) at
 	// (0.2, 4) m/s, tractor B from (4, 60) at (−0.1, −3.5) m/s.
 	ts := float64(latest-gatesim.T0) * 1e-9
-	truth := [][2]float64{{-3 + 0.2*ts, 8 + 4*ts}, {4 - 0.1*ts, 60 - 3.5*ts}}
+	truth := [][2]float64{gatesim.Tractors[0].At(ts), gatesim.Tractors[1].At(ts)}
 	tracks := final["tracks"].([]any)
 	for _, want := range truth {
 		found := false

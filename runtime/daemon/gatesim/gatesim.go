@@ -30,61 +30,91 @@ type Msg struct {
 	Sensor  string
 }
 
-type tractor struct{ x0, y0, vx, vy float64 }
+// Tractor is one invented target: it starts at (X0, Y0) in the site frame
+// at the scene's T0 and drives at constant velocity (VX, VY), m and m/s.
+type Tractor struct{ X0, Y0, VX, VY float64 }
 
-// Gate returns the clean traffic of a gate pass lasting dur: two tractors,
-// one entering the yard and one leaving, measured by every sensor of cfg at
-// its period, with Gaussian noise of the configured s.d., arrival latencies
-// of 2–12 ms and, every 25th radar scan, one delivered 120 ms late (inside
-// the 200 ms lag window, so the engine rewinds). Sorted by arrival time.
+// At is the tractor's position s seconds after T0.
+func (g Tractor) At(s float64) [2]float64 { return [2]float64{g.X0 + g.VX*s, g.Y0 + g.VY*s} }
+
+// Tractors are the two tractors of every scene: one entering the yard and
+// one leaving it (the post sits at the site origin facing north).
+var Tractors = []Tractor{{X0: -3, Y0: 8, VX: 0.2, VY: 4}, {X0: 4, Y0: 60, VX: -0.1, VY: -3.5}}
+
+// Scene measures the tractors with the sensors of a configuration.
+type Scene struct {
+	cfg *configs.Config
+	T0  int64
+	rng *rand.Rand
+}
+
+// NewScene starts a scene at t0 (ns since the Unix epoch) with a seeded
+// noise source.
+func NewScene(cfg *configs.Config, t0 int64, seed uint64) *Scene {
+	return &Scene{cfg: cfg, T0: t0, rng: rand.New(rand.NewPCG(seed, 0x6a7e))}
+}
+
+// Payload is the measurement message sensor i sends for its scan seq at
+// time t: every tractor inside its range and field of view, with Gaussian
+// noise of the configured s.d.
+func (sc *Scene) Payload(i int, seq uint64, t int64) []byte {
+	s := sc.cfg.Sensors[i]
+	// The platform pose and the mount together place the sensor.
+	py := sc.cfg.Platform.Pose.YawDeg * math.Pi / 180
+	sx := sc.cfg.Platform.Pose.X + math.Cos(py)*s.Mount.X - math.Sin(py)*s.Mount.Y
+	sy := sc.cfg.Platform.Pose.Y + math.Sin(py)*s.Mount.X + math.Cos(py)*s.Mount.Y
+	syaw := py + s.Mount.YawDeg*math.Pi/180
+	c, sn := math.Cos(syaw), math.Sin(syaw)
+	m := transport.Measurement{V: 1, Sensor: s.Name, Seq: seq, TNs: t}
+	ts := float64(t-sc.T0) * 1e-9
+	for _, g := range Tractors {
+		p := g.At(ts)
+		ex, ny := p[0]-sx, p[1]-sy
+		// Into the sensor frame: rotate by −yaw.
+		x, y := c*ex+sn*ny, -sn*ex+c*ny
+		vx, vy := c*g.VX+sn*g.VY, -sn*g.VX+c*g.VY
+		r, b := math.Hypot(x, y), math.Atan2(y, x)
+		if r > s.MaxRange || math.Abs(b) > s.FOVDeg*math.Pi/360 {
+			continue
+		}
+		var d transport.Detection
+		switch s.Kind {
+		case configs.KindPositionXY:
+			d.Dim, d.Z = 2, [3]float64{x, y}
+		case configs.KindRangeBearing:
+			d.Dim, d.Z = 2, [3]float64{r, b}
+		case configs.KindRangeBearingRate:
+			// ṙ: the target's velocity along the line of sight.
+			d.Dim, d.Z = 3, [3]float64{r, b, (x*vx + y*vy) / r}
+		default:
+			continue
+		}
+		for k := 0; k < d.Dim; k++ {
+			d.Z[k] += s.NoiseSD[k] * sc.rng.NormFloat64()
+		}
+		m.Dets = append(m.Dets, d)
+	}
+	payload, err := transport.AppendMeasurement(nil, &m)
+	if err != nil {
+		panic(err) // finite by construction
+	}
+	return payload
+}
+
+// Gate returns the clean traffic of a gate pass lasting dur from T0,
+// measured by every sensor of cfg at its period, with arrival latencies of
+// 2–12 ms and, every 25th radar scan, one delivered 120 ms late (inside the
+// dock post's 200 ms lag window, so the engine rewinds). Sorted by arrival.
 func Gate(cfg *configs.Config, dur time.Duration, seed uint64) []Msg {
-	rng := rand.New(rand.NewPCG(seed, 0x6a7e))
-	// The post sits at the site origin facing north; the yard is north of it.
-	targets := []tractor{{x0: -3, y0: 8, vx: 0.2, vy: 4}, {x0: 4, y0: 60, vx: -0.1, vy: -3.5}}
+	sc := NewScene(cfg, T0, seed)
 	var out []Msg
-	for _, s := range cfg.Sensors {
+	for i, s := range cfg.Sensors {
 		period := int64(s.PeriodMS * 1e6)
-		// The platform pose and the mount together place the sensor.
-		py := cfg.Platform.Pose.YawDeg * math.Pi / 180
-		sx := cfg.Platform.Pose.X + math.Cos(py)*s.Mount.X - math.Sin(py)*s.Mount.Y
-		sy := cfg.Platform.Pose.Y + math.Sin(py)*s.Mount.X + math.Cos(py)*s.Mount.Y
-		syaw := py + s.Mount.YawDeg*math.Pi/180
-		c, sn := math.Cos(syaw), math.Sin(syaw)
 		var seq uint64
-		for t := T0 + int64(rng.IntN(int(period))); t < T0+dur.Nanoseconds(); t += period {
+		for t := T0 + int64(sc.rng.IntN(int(period))); t < T0+dur.Nanoseconds(); t += period {
 			seq++
-			m := transport.Measurement{V: 1, Sensor: s.Name, Seq: seq, TNs: t}
-			ts := float64(t-T0) * 1e-9
-			for _, g := range targets {
-				ex, ny := g.x0+g.vx*ts-sx, g.y0+g.vy*ts-sy
-				// Into the sensor frame: rotate by −yaw.
-				x, y := c*ex+sn*ny, -sn*ex+c*ny
-				vx, vy := c*g.vx+sn*g.vy, -sn*g.vx+c*g.vy
-				r, b := math.Hypot(x, y), math.Atan2(y, x)
-				if r > s.MaxRange || math.Abs(b) > s.FOVDeg*math.Pi/360 {
-					continue
-				}
-				var d transport.Detection
-				switch s.Kind {
-				case configs.KindPositionXY:
-					d.Dim, d.Z = 2, [3]float64{x, y}
-				case configs.KindRangeBearing:
-					d.Dim, d.Z = 2, [3]float64{r, b}
-				case configs.KindRangeBearingRate:
-					d.Dim, d.Z = 3, [3]float64{r, b, (x*vx + y*vy) / r}
-				default:
-					continue
-				}
-				for i := 0; i < d.Dim; i++ {
-					d.Z[i] += s.NoiseSD[i] * rng.NormFloat64()
-				}
-				m.Dets = append(m.Dets, d)
-			}
-			payload, err := transport.AppendMeasurement(nil, &m)
-			if err != nil {
-				panic(err) // finite by construction
-			}
-			rx := t + 2_000_000 + int64(rng.IntN(10_000_000))
+			payload := sc.Payload(i, seq, t)
+			rx := t + 2_000_000 + int64(sc.rng.IntN(10_000_000))
 			if s.Kind == configs.KindRangeBearingRate && seq%25 == 0 {
 				rx += 120_000_000
 			}

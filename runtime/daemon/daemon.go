@@ -1,0 +1,320 @@
+package daemon
+
+import (
+	"context"
+	"fmt"
+	"sync"
+	"time"
+
+	"github.com/godwit-fusion/godwit/configs"
+	"github.com/godwit-fusion/godwit/runtime/engine"
+	"github.com/godwit-fusion/godwit/transport"
+	"github.com/godwit-fusion/godwit/transport/mqtt"
+	"go.uber.org/zap"
+)
+
+// Options configure a Daemon.
+type Options struct {
+	Config *configs.Config // validated (configs.Load)
+	Logger *zap.Logger     // nil discards
+	Engine engine.Options
+	// MQTT, when set, adjusts the client options built from the
+	// configuration (tests shorten the reconnect backoff).
+	MQTT func(*mqtt.Options)
+	// HealthPeriod is the cadence of the retained health message; 0 means
+	// 1 s (DESIGN.md).
+	HealthPeriod time.Duration
+	// AlertHold is how long the health message keeps reporting a broker
+	// outage or queue overflow after it happened; 0 means 60 s.
+	AlertHold time.Duration
+}
+
+// Stats is a snapshot of the daemon's counters.
+type Stats struct {
+	Pipeline      PipelineStats
+	Engine        engine.Counters
+	MQTT          mqtt.Stats
+	QueuePushed   uint64 // messages the callback handed over
+	QueueDropped  uint64 // dropped because the engine fell behind (oldest first)
+	Published     uint64 // tracks and health messages the broker took
+	PublishErrors uint64 // tracks and health messages that could not be published
+	Outages       uint64 // established broker connections lost
+	LastOutage    time.Duration
+}
+
+// Daemon is godwit's live loop: MQTT in, the engine in one goroutine,
+// tracks and health out.
+//
+// The MQTT callback only copies each message into a bounded queue (drop
+// oldest on overflow), so a slow engine can never stall the connection.
+// The engine goroutine pops, decodes and ingests with the arrival time the
+// callback stamped, calls Advance on a ticker at output.rate_hz (or after
+// every processed scan with rate_hz 0), and publishes tracks (QoS
+// broker.qos) and health (retained, once per HealthPeriod). The client
+// announces "online" (retained) on every connect, leaves "offline" as its
+// last will, and reconnects with capped backoff; the daemon reports each
+// outage in the log, in Stats and in the health message.
+type Daemon struct {
+	opts  Options
+	cfg   *configs.Config
+	log   *zap.Logger
+	pipe  *Pipeline
+	queue *transport.Queue
+	qos   byte
+
+	events chan mqtt.Event
+
+	mu   sync.Mutex
+	snap Stats
+
+	// Engine goroutine only.
+	client        *mqtt.Client
+	in            transport.Inbound
+	published     uint64
+	publishErrors uint64
+	outages       uint64
+	lastOutage    time.Duration
+	downSince     time.Time
+	outageAt      time.Time
+	lastDropped   uint64
+	overflowAt    time.Time
+	alerts        []transport.Alert
+	pubLimit      time.Time
+	pubSuppressed uint64
+}
+
+// New builds the pipeline and the queue; Run connects.
+func New(opts Options) (*Daemon, error) {
+	cfg := opts.Config
+	if cfg == nil {
+		return nil, fmt.Errorf("daemon: no configuration")
+	}
+	if opts.Logger == nil {
+		opts.Logger = zap.NewNop()
+	}
+	if opts.HealthPeriod <= 0 {
+		opts.HealthPeriod = time.Second
+	}
+	if opts.AlertHold <= 0 {
+		opts.AlertHold = time.Minute
+	}
+	if cfg.Broker.QoS < 0 || cfg.Broker.QoS > 2 {
+		return nil, fmt.Errorf("daemon: broker.qos %d, want 0, 1 or 2", cfg.Broker.QoS)
+	}
+	pipe, err := NewPipeline(cfg, opts.Engine, opts.Logger)
+	if err != nil {
+		return nil, err
+	}
+	maxBytes := cfg.Limits.MaxPayloadBytes
+	if maxBytes <= 0 {
+		maxBytes = transport.DefaultMaxPayloadBytes
+	}
+	return &Daemon{
+		opts: opts, cfg: cfg, log: opts.Logger, pipe: pipe,
+		queue:  transport.NewQueue(max(cfg.Limits.QueueLength, 1), 1024, maxBytes),
+		qos:    byte(cfg.Broker.QoS),
+		events: make(chan mqtt.Event, 64),
+	}, nil
+}
+
+// Stats returns the counters as of the engine goroutine's last step.
+func (d *Daemon) Stats() Stats {
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	return d.snap
+}
+
+// clientOptions maps the configuration onto the MQTT client.
+func (d *Daemon) clientOptions() mqtt.Options {
+	b := d.cfg.Broker
+	o := mqtt.Options{
+		URL: b.URL, ClientID: b.ClientID, CleanSession: !b.PersistentSession, QoS: d.qos,
+		Username: b.Username, PasswordFile: b.PasswordFile,
+		CAFile: b.TLS.CA, CertFile: b.TLS.Cert, KeyFile: b.TLS.Key,
+		StatusTopic: d.cfg.Output.StatusTopic,
+		Logger:      d.log,
+		OnState: func(e mqtt.Event) {
+			// Never block the client's goroutine; the counters in
+			// mqtt.Stats stay exact even if an event is lost here.
+			select {
+			case d.events <- e:
+			default:
+			}
+		},
+	}
+	if d.opts.MQTT != nil {
+		d.opts.MQTT(&o)
+	}
+	return o
+}
+
+// closed is always ready: it keeps the loop draining while the queue
+// still holds messages after a bounded batch.
+var closed = func() chan struct{} { c := make(chan struct{}); close(c); return c }()
+
+// Run connects and serves until ctx is cancelled, then stops gracefully:
+// it processes what is queued, publishes the last output and health,
+// announces "offline" and disconnects. It returns nil after a graceful
+// stop and an error only when it could not start.
+func (d *Daemon) Run(ctx context.Context) error {
+	client, err := mqtt.New(d.clientOptions())
+	if err != nil {
+		return err
+	}
+	d.client = client
+	for _, f := range d.pipe.Topics() {
+		if err := client.Subscribe(f, d.qos, d.queue); err != nil {
+			client.Close()
+			return err
+		}
+	}
+	client.Start()
+	d.log.Info("godwit daemon starting", zap.String("vehicle", d.cfg.Vehicle),
+		zap.Strings("subscriptions", d.pipe.Topics()), zap.String("tracks_topic", d.cfg.Output.TracksTopic))
+
+	var tick <-chan time.Time
+	if period := d.pipe.RatePeriodNs(); period > 0 {
+		t := time.NewTicker(time.Duration(period))
+		defer t.Stop()
+		tick = t.C
+	}
+	health := time.NewTicker(d.opts.HealthPeriod)
+	defer health.Stop()
+
+	pending := false
+	for {
+		ready := d.queue.Ready()
+		if pending {
+			ready = closed
+		}
+		select {
+		case <-ctx.Done():
+			d.stop()
+			return nil
+		case <-ready:
+			pending = d.drain(d.queue.Cap())
+		case now := <-tick:
+			d.advance(now.UnixNano())
+		case now := <-health.C:
+			d.publishHealth(now)
+		case e := <-d.events:
+			d.onEvent(e)
+		}
+		d.snapshot()
+	}
+}
+
+// stop is the graceful end: drain, last output, offline, disconnect.
+func (d *Daemon) stop() {
+	for d.drain(d.queue.Cap()) {
+	}
+	now := time.Now()
+	if !d.pipe.PerScan() {
+		d.advance(now.UnixNano())
+	}
+	d.publishHealth(now)
+	d.client.Close() // publishes "offline" (retained) while connected
+	d.snapshot()
+	d.log.Info("godwit daemon stopped", zap.Uint64("messages", d.pipe.Stats().Messages))
+}
+
+// drain processes up to limit queued messages and reports whether more are
+// waiting. This is the ingest path: Pop swaps buffers, Decode and Ingest
+// reuse theirs, so a warm daemon allocates nothing here per message.
+func (d *Daemon) drain(limit int) bool {
+	for i := 0; i < limit; i++ {
+		if !d.queue.Pop(&d.in) {
+			return false
+		}
+		err := d.pipe.Handle(d.in.Topic, d.in.Payload, d.in.ArrivalNs)
+		if err == nil && d.pipe.PerScan() {
+			d.advance(d.in.ArrivalNs)
+		}
+	}
+	return d.queue.Len() > 0
+}
+
+func (d *Daemon) advance(nowNs int64) {
+	if b, ok := d.pipe.Advance(nowNs); ok {
+		d.publish(d.cfg.Output.TracksTopic, b, false)
+	}
+}
+
+func (d *Daemon) publish(topic string, b []byte, retain bool) {
+	err := d.client.Publish(topic, b, d.qos, retain)
+	if err == nil {
+		d.published++
+		return
+	}
+	d.publishErrors++
+	// A timed-out publish may still be queued inside the MQTT library with
+	// our buffer; never write into that buffer again.
+	d.pipe.releaseBuffers()
+	if now := time.Now(); now.Sub(d.pubLimit) >= time.Second {
+		d.log.Warn("publish failed", zap.String("topic", topic), zap.Error(err),
+			zap.Uint64("suppressed_since_last", d.pubSuppressed))
+		d.pubLimit, d.pubSuppressed = now, 0
+	} else {
+		d.pubSuppressed++
+	}
+}
+
+func (d *Daemon) publishHealth(now time.Time) {
+	d.alerts = d.alerts[:0]
+	if !d.outageAt.IsZero() && now.Sub(d.outageAt) < d.opts.AlertHold {
+		d.alerts = append(d.alerts, transport.Alert{Code: "broker_outage", Severity: "warning",
+			SinceNs: d.outageAt.UnixNano(),
+			Detail: fmt.Sprintf("broker connection lost %d time(s), the last outage lasted %d ms",
+				d.outages, d.lastOutage.Milliseconds())})
+	}
+	if dropped := d.queue.Dropped(); dropped > d.lastDropped {
+		d.lastDropped, d.overflowAt = dropped, now
+	}
+	if !d.overflowAt.IsZero() && now.Sub(d.overflowAt) < d.opts.AlertHold {
+		d.alerts = append(d.alerts, transport.Alert{Code: "queue_overflow", Severity: "warning",
+			SinceNs: d.overflowAt.UnixNano(),
+			Detail:  fmt.Sprintf("%d message(s) dropped, oldest first: the engine fell behind the input", d.lastDropped)})
+	}
+	if !d.client.Connected() {
+		return // nothing to publish to; the next health after reconnect reports it
+	}
+	d.publish(d.cfg.Output.HealthTopic, d.pipe.Health(now.UnixNano(), d.alerts), true)
+}
+
+func (d *Daemon) onEvent(e mqtt.Event) {
+	switch e.Kind {
+	case mqtt.Disconnected:
+		d.outages++
+		d.downSince = e.At
+		d.log.Warn("broker connection lost; reconnecting", zap.Error(e.Err), zap.Uint64("outages", d.outages))
+	case mqtt.Connected:
+		if !d.downSince.IsZero() {
+			d.lastOutage = e.At.Sub(d.downSince)
+			d.outageAt = d.downSince
+			d.downSince = time.Time{}
+			d.log.Info("broker connection back", zap.Duration("outage", d.lastOutage))
+		}
+		// Tell the fleet at once (state, and any outage) rather than at the
+		// next health tick.
+		d.publishHealth(time.Now())
+	}
+}
+
+func (d *Daemon) snapshot() {
+	s := Stats{
+		Pipeline:      d.pipe.Stats(),
+		Engine:        d.pipe.Engine().Counters(),
+		QueuePushed:   d.queue.Pushed(),
+		QueueDropped:  d.queue.Dropped(),
+		Published:     d.published,
+		PublishErrors: d.publishErrors,
+		Outages:       d.outages,
+		LastOutage:    d.lastOutage,
+	}
+	if d.client != nil {
+		s.MQTT = d.client.Stats()
+	}
+	d.mu.Lock()
+	d.snap = s
+	d.mu.Unlock()
+}
