@@ -7,6 +7,7 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 
 	"gopkg.in/yaml.v3"
 )
@@ -134,7 +135,20 @@ func (d *decoder) decode(n *yaml.Node, v reflect.Value, path string) {
 	switch v.Kind() {
 	case reflect.String:
 		// Any plain scalar reads as text: client_id: 1234 means "1234".
-		v.SetString(n.Value)
+		s := n.Value
+		if n.Tag == "!!binary" {
+			if err := n.Decode(&s); err != nil {
+				d.nodeErr(n, path, "holds !!binary data that is not valid base64")
+				return
+			}
+		}
+		if r, bad := badText(s); bad {
+			// MQTT 3.1.1 §1.5.3: strings are well-formed UTF-8 and should hold
+			// no control characters; names and paths gain nothing from them.
+			d.nodeErr(n, path, "holds %s; write plain text", r)
+			return
+		}
+		v.SetString(s)
 	case reflect.Bool:
 		if n.Tag != "!!bool" {
 			d.nodeErr(n, path, "must be true or false, got %s", describe(n))
@@ -389,4 +403,18 @@ func editDistance(a, b string) int {
 // problems without a line come first, and ties keep their finding order.
 func sortErrors(errs []*Error) {
 	sort.SliceStable(errs, func(i, j int) bool { return errs[i].Line < errs[j].Line })
+}
+
+// badText reports a control character or invalid UTF-8 in s, described
+// for a message.
+func badText(s string) (string, bool) {
+	if !utf8.ValidString(s) {
+		return "invalid UTF-8", true
+	}
+	for _, r := range s {
+		if r < 0x20 || r >= 0x7f && r < 0xa0 {
+			return fmt.Sprintf("a control character (U+%04X)", r), true
+		}
+	}
+	return "", false
 }
