@@ -125,7 +125,7 @@ func TestPropertyRoundTrip(t *testing.T) {
 // makes Parse fail with exactly one message, and it names that field.
 func TestPropertyOneBreakOneError(t *testing.T) {
 	breaks := []struct {
-		path  string
+		path   string
 		break_ func(c *Config)
 	}{
 		{"broker.qos", func(c *Config) { c.Broker.QoS = 3 }},
