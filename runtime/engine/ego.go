@@ -44,8 +44,11 @@ func (gnssModel) Residual(dst, a, b []float64) {
 	dst[0], dst[1] = a[0]-b[0], a[1]-b[1]
 }
 
-// Ego prior when the estimator starts: the configured pose, loosely.
+// Ego prior when the estimator starts: the configured pose, loosely when
+// GNSS will correct it, tightly (known start pose) when nothing can.
 const (
+	egoKnownPosSD    = 0.1  // m
+	egoKnownYawSD    = 0.01 // rad
 	egoInitPosSD     = 10.0 // m
 	egoInitYawSD     = 0.5  // rad
 	egoInitSpeedSD   = 3.0  // m/s
@@ -76,7 +79,9 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 			x0[0] = z[0] - (c*s.mount.X - sn*s.mount.Y)
 			x0[1] = z[1] - (sn*s.mount.X + c*s.mount.Y)
 		}
-		S0[0], S0[6], S0[12], S0[18], S0[24] = egoInitPosSD, egoInitPosSD, egoInitSpeedSD, egoInitYawSD, egoInitYawRateSD
+		for k := 0; k < 5; k++ {
+			S0[k*5+k] = e.egoPrior[k]
+		}
 		if err := st.ego.Init(x0, S0); err != nil {
 			e.counters.FilterErrors++
 			return

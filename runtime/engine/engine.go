@@ -126,7 +126,8 @@ type Engine struct {
 	mkEgo          func() (filters.Filter, error)
 	site           geo.Local
 	siteAlt        float64
-	egoActive      bool // this scan's noise carries the ego pose uncertainty
+	egoPrior       [5]float64 // s.d. of the ego prior, state order
+	egoActive      bool       // this scan's noise carries the ego pose uncertainty
 	odo            *odometryModel
 	gnss           *gnssModel
 
@@ -163,6 +164,7 @@ type Counters struct {
 	Births       uint64
 	Deletions    uint64
 	FilterErrors uint64 // predict/update failures (the track is dropped or the update skipped)
+	EgoNotReady  uint64 // tracking scans skipped while the ego estimate was still settling
 	Emitted      uint64 // tracks messages written
 }
 
@@ -307,6 +309,16 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		e.sensors = append(e.sensors, s)
 	}
 	if e.platformMoving {
+		// Without GNSS the configured start pose is the only absolute
+		// information: trust it. With GNSS, start loose and let it settle.
+		e.egoPrior = [5]float64{egoInitPosSD, egoInitPosSD, egoInitSpeedSD, egoInitYawSD, egoInitYawRateSD}
+		hasGNSS := false
+		for _, s := range e.sensors {
+			hasGNSS = hasGNSS || s.kind == kindGNSS
+		}
+		if !hasGNSS {
+			e.egoPrior[0], e.egoPrior[1], e.egoPrior[3] = egoKnownPosSD, egoKnownPosSD, egoKnownYawSD
+		}
 		e.odo = &odometryModel{}
 		e.gnss = &gnssModel{}
 	}

@@ -80,9 +80,36 @@ func (e *Engine) process(sc *scan) {
 	case kindOdometry, kindGNSS:
 		e.egoUpdate(sc, s)
 	default:
+		if e.platformMoving && !e.egoReady() {
+			// Detections cannot be placed in the site frame yet: a track
+			// started on a wrong heading would be dragged away as the ego
+			// estimate settles, and the ego error is not white.
+			e.counters.EgoNotReady++
+			return
+		}
 		e.trackScan(sc, s)
 	}
 }
+
+// egoReady reports whether the ego estimate is good enough to place
+// detections: heading s.d. under egoReadyYawSD and position s.d. under
+// egoReadyPosSD.
+func (e *Engine) egoReady() bool {
+	if !e.st.egoInit {
+		return false
+	}
+	var P [25]float64
+	e.st.ego.State().Covariance(P[:])
+	return P[3*5+3] <= egoReadyYawSD*egoReadyYawSD && P[0]+P[6] <= egoReadyPosSD*egoReadyPosSD
+}
+
+// Readiness of the ego estimate for tracking: 3° of heading is 3 m of
+// lateral error at 60 m, which the ego-aware measurement noise absorbs
+// (common practice: trackers wait for localisation to converge).
+const (
+	egoReadyYawSD = 0.05 // rad
+	egoReadyPosSD = 3.0  // m
+)
 
 // predictTo moves every track (and the ego state) to tNs. A track whose
 // prediction fails is removed: its state can no longer be trusted.
