@@ -34,16 +34,24 @@ type TargetSensor interface {
 	NoiseSqrt(Rs, x []float64) error
 }
 
+// positioner is an optional fast path for models whose position is cheaper
+// than the full PosVel (CTRV's velocity costs a sine and a cosine, which a
+// particle filter would pay per particle for nothing).
+type positioner interface {
+	Position(x []float64) (px, py float64)
+}
+
 // target is what all target measurement models share.
 type target struct {
 	frame
-	k  Kinematics
-	n  int
-	m  int
-	pv [4]float64
-	J  []float64   // 4×n, ∂pv/∂x
-	D  [12]float64 // m×4, ∂z/∂pv
-	sd [3]float64  // configured noise s.d., zero until SetNoise
+	k   Kinematics
+	pos positioner // k when it has the fast path, else nil
+	n   int
+	m   int
+	pv  [4]float64
+	J   []float64   // 4×n, ∂pv/∂x
+	D   [12]float64 // m×4, ∂z/∂pv
+	sd  [3]float64  // configured noise s.d., zero until SetNoise
 }
 
 func newTarget(k Kinematics, mount Mount, m int) (target, error) {
@@ -58,7 +66,8 @@ func newTarget(k Kinematics, mount Mount, m int) (target, error) {
 	if err != nil {
 		return target{}, err
 	}
-	return target{frame: f, k: k, n: n, m: m, J: make([]float64, 4*n)}, nil
+	pos, _ := k.(positioner)
+	return target{frame: f, k: k, pos: pos, n: n, m: m, J: make([]float64, 4*n)}, nil
 }
 
 // Dim is the measurement dimension.
@@ -97,6 +106,20 @@ func (t *target) rel(x []float64, jac bool) (dx, dy, r, ux, uy float64) {
 	}
 	dx, dy = t.pv[0]-t.sx, t.pv[1]-t.sy
 	return dx, dy, math.Hypot(dx, dy), t.pv[2] - t.svx, t.pv[3] - t.svy
+}
+
+// relPos returns the target's offset from the sensor (site axes) and range.
+func (t *target) relPos(x []float64) (dx, dy, r float64) {
+	var px, py float64
+	if t.pos != nil {
+		px, py = t.pos.Position(x)
+	} else {
+		t.k.PosVel(t.pv[:], x, nil)
+		px, py = t.pv[0], t.pv[1]
+	}
+	dx, dy = px-t.sx, py-t.sy
+	// Plain √ rather than Hypot: site distances are nowhere near overflow.
+	return dx, dy, math.Sqrt(dx*dx + dy*dy)
 }
 
 func (t *target) checkBirth(pos, cov, z, Rs []float64) error {
@@ -146,7 +169,7 @@ func NewPositionXY(k Kinematics, mount Mount) (*PositionXY, error) {
 
 // Predict writes the sensor-frame position of the target.
 func (p *PositionXY) Predict(z, x []float64) {
-	dx, dy, _, _, _ := p.rel(x, false)
+	dx, dy, _ := p.relPos(x)
 	z[0] = p.cos*dx + p.sin*dy
 	z[1] = -p.sin*dx + p.cos*dy
 }
@@ -196,7 +219,7 @@ func NewRangeBearing(k Kinematics, mount Mount) (*RangeBearing, error) {
 
 // Predict writes range and bearing of the target.
 func (p *RangeBearing) Predict(z, x []float64) {
-	dx, dy, r, _, _ := p.rel(x, false)
+	dx, dy, r := p.relPos(x)
 	z[0] = r
 	z[1] = math.Atan2(-p.sin*dx+p.cos*dy, p.cos*dx+p.sin*dy)
 }
@@ -349,7 +372,7 @@ func (p *Pinhole) SetRangeSDFrac(frac float64) error {
 
 // Predict writes [u, r].
 func (p *Pinhole) Predict(z, x []float64) {
-	dx, dy, r, _, _ := p.rel(x, false)
+	dx, dy, r := p.relPos(x)
 	xs := math.Max(p.cos*dx+p.sin*dy, minDepth)
 	ys := -p.sin*dx + p.cos*dy
 	z[0] = p.cx - p.fx*ys/xs
@@ -400,7 +423,7 @@ func (p *Pinhole) NoiseSqrtAtRange(Rs []float64, rng float64) error {
 
 // NoiseSqrt writes the noise square root at the predicted range of x.
 func (p *Pinhole) NoiseSqrt(Rs, x []float64) error {
-	_, _, r, _, _ := p.rel(x, false)
+	_, _, r := p.relPos(x)
 	return p.NoiseSqrtAtRange(Rs, r)
 }
 

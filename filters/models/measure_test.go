@@ -2,6 +2,7 @@ package models
 
 import (
 	"math"
+	"slices"
 	"testing"
 
 	"github.com/godwit-fusion/godwit/filters"
@@ -111,6 +112,25 @@ func TestMeasurementJacobians(t *testing.T) {
 			}
 		}
 	})
+}
+
+// onlyKinematics hides every optional fast path of a motion model.
+type onlyKinematics struct{ Kinematics }
+
+// A motion model without the Position fast path predicts the same.
+func TestKinematicsWithoutFastPath(t *testing.T) {
+	ctrv := mustCTRV(t, 1, 1)
+	x := []float64{20, -7, 3, 0.4, 0.1}
+	fast := newTargetModels(t, ctrv, Mount{X: 1, Yaw: 0.1})
+	slow := newTargetModels(t, onlyKinematics{ctrv}, Mount{X: 1, Yaw: 0.1})
+	for i := range fast {
+		a, b := make([]float64, 3), make([]float64, 3)
+		fast[i].Predict(a, x)
+		slow[i].Predict(b, x)
+		if !slices.Equal(a, b) {
+			t.Errorf("%T: %v with the fast path, %v without", fast[i], a, b)
+		}
+	}
 }
 
 // Geometry by hand: a sensor mounted 2 m forward, 1 m left, yawed +90° on a

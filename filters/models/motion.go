@@ -75,6 +75,13 @@ func WrapAngle(a float64) float64 {
 	if a > -math.Pi && a <= math.Pi {
 		return a
 	}
+	// One turn off is the common case (a sum of two wrapped angles).
+	if a > math.Pi && a <= 3*math.Pi {
+		return a - 2*math.Pi
+	}
+	if a <= -math.Pi && a > -3*math.Pi {
+		return a + 2*math.Pi
+	}
 	a = math.Remainder(a, 2*math.Pi) // in [−π, π]
 	if a <= -math.Pi {
 		a += 2 * math.Pi
@@ -152,6 +159,26 @@ func (*CV) PosVel(pv, x, J []float64) {
 	if J != nil {
 		identity(J, 4)
 	}
+}
+
+// Position returns (px, py) without the velocity.
+func (*CV) Position(x []float64) (px, py float64) { return x[0], x[1] }
+
+// NoiseDim is the number of standard normals PropagateNoisy consumes.
+func (*CV) NoiseDim() int { return 4 }
+
+// PropagateNoisy writes f(x, dt) + G·ξ (G from NoiseFactor, ξ of length
+// NoiseDim) without forming G: the sampling fast path of particle filters.
+func (m *CV) PropagateNoisy(dst, x []float64, dt float64, ξ []float64) {
+	t := math.Abs(dt)
+	rt := math.Sqrt(t)
+	g11 := m.sq * cwna11 * t * rt
+	g21 := m.sq * cwna21 * rt
+	g22 := m.sq * cwna22 * rt
+	dst[0] = x[0] + dt*x[2] + g11*ξ[0]
+	dst[1] = x[1] + dt*x[3] + g11*ξ[1]
+	dst[2] = x[2] + g21*ξ[0] + g22*ξ[2]
+	dst[3] = x[3] + g21*ξ[1] + g22*ξ[3]
 }
 
 // ---------------------------------------------------------------- CA
@@ -238,6 +265,28 @@ func (*CA) PosVel(pv, x, J []float64) {
 	}
 }
 
+// Position returns (px, py) without the velocity.
+func (*CA) Position(x []float64) (px, py float64) { return x[0], x[1] }
+
+// NoiseDim is the number of standard normals PropagateNoisy consumes.
+func (*CA) NoiseDim() int { return 6 }
+
+// PropagateNoisy writes f(x, dt) + G·ξ (G from NoiseFactor, ξ of length
+// NoiseDim) without forming G.
+func (m *CA) PropagateNoisy(dst, x []float64, dt float64, ξ []float64) {
+	m.Propagate(dst, x, dt)
+	t := math.Abs(dt)
+	r1 := m.sq * math.Sqrt(t)
+	r3 := r1 * t
+	r5 := r3 * t
+	for ax := 0; ax < 2; ax++ {
+		p, v, a := ax, 2+ax, 4+ax
+		dst[p] += r5 * cwpa11 * ξ[p]
+		dst[v] += r3*cwpa21*ξ[p] + r3*cwpa22*ξ[v]
+		dst[a] += r1*cwpa31*ξ[p] + r1*cwpa32*ξ[v] + r1*cwpa33*ξ[a]
+	}
+}
+
 // ---------------------------------------------------------------- CTRV
 
 // CTRV is the constant turn rate and velocity model, state
@@ -283,11 +332,12 @@ const turnSeriesBelow = 0.05
 // turnFns returns s(θ)=sinθ/θ, c(θ)=(1−cosθ)/θ and their derivatives.
 func turnFns(θ float64) (s, c, ds, dc float64) {
 	if math.Abs(θ) < turnSeriesBelow {
+		// Horner forms with constant reciprocals (no divisions in the hot path).
 		t2 := θ * θ
-		s = 1 - t2/6*(1-t2/20*(1-t2/42*(1-t2/72)))
-		c = θ / 2 * (1 - t2/12*(1-t2/30*(1-t2/56*(1-t2/90))))
-		ds = -θ / 3 * (1 - t2/10*(1-t2/28*(1-t2/54)))
-		dc = 0.5 - t2/8*(1-t2/18*(1-t2/40*(1-t2/70)))
+		s = 1 - t2*(1.0/6)*(1-t2*(1.0/20)*(1-t2*(1.0/42)*(1-t2*(1.0/72))))
+		c = θ * 0.5 * (1 - t2*(1.0/12)*(1-t2*(1.0/30)*(1-t2*(1.0/56)*(1-t2*(1.0/90)))))
+		ds = -θ * (1.0 / 3) * (1 - t2*(1.0/10)*(1-t2*(1.0/28)*(1-t2*(1.0/54))))
+		dc = 0.5 - t2*(1.0/8)*(1-t2*(1.0/18)*(1-t2*(1.0/40)*(1-t2*(1.0/70))))
 		return s, c, ds, dc
 	}
 	sθ, cθ := math.Sincos(θ)
@@ -368,6 +418,46 @@ func (*CTRV) PosVel(pv, x, J []float64) {
 		J[2*5+2], J[2*5+3] = cy, -x[2]*sy
 		J[3*5+2], J[3*5+3] = sy, x[2]*cy
 	}
+}
+
+// Position returns (px, py) without the velocity.
+func (*CTRV) Position(x []float64) (px, py float64) { return x[0], x[1] }
+
+// NoiseDim is 4: Q has rank 4 (see CTRV).
+func (*CTRV) NoiseDim() int { return 4 }
+
+// halfTurn returns sin and cos of θ/2, by series below the turn-series
+// switch (dropped terms < 1e-20 there).
+func halfTurn(θ float64) (sh, ch float64) {
+	if math.Abs(θ) < turnSeriesBelow {
+		h := θ * 0.5
+		h2 := h * h
+		sh = h * (1 - h2*(1.0/6)*(1-h2*(1.0/20)*(1-h2*(1.0/42))))
+		ch = 1 - h2*0.5*(1-h2*(1.0/12)*(1-h2*(1.0/30)*(1-h2*(1.0/56))))
+		return sh, ch
+	}
+	return math.Sincos(θ / 2)
+}
+
+// PropagateNoisy writes f(x, dt) + G(x, dt)·ξ (G from NoiseFactor, ξ of
+// length NoiseDim) without forming G and with one sine/cosine of the yaw:
+// the mid-interval heading comes from the angle-addition formulas.
+func (m *CTRV) PropagateNoisy(dst, x []float64, dt float64, ξ []float64) {
+	v, yaw, w := x[2], x[3], x[4]
+	θ := w * dt
+	s, c, _, _ := turnFns(θ)
+	sy, cy := math.Sincos(yaw)
+	sh, ch := halfTurn(θ)
+	smid, cmid := sy*ch+cy*sh, cy*ch-sy*sh
+	t := math.Abs(dt)
+	rt := math.Sqrt(t)
+	a := m.sa * cwna11 * t * rt * ξ[0]
+	vt := v * dt
+	dst[0] = x[0] + vt*(cy*s-sy*c) + a*cmid
+	dst[1] = x[1] + vt*(sy*s+cy*c) + a*smid
+	dst[2] = v + m.sa*rt*(cwna21*ξ[0]+cwna22*ξ[1])
+	dst[3] = WrapAngle(yaw + θ + m.sw*cwna11*t*rt*ξ[2])
+	dst[4] = w + m.sw*rt*(cwna21*ξ[2]+cwna22*ξ[3])
 }
 
 // ---------------------------------------------------------------- Ego

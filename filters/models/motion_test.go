@@ -373,3 +373,54 @@ func BenchmarkCTRVPropagateJacobianNoise(b *testing.B) {
 		m.NoiseFactor(G, x, 0.05)
 	}
 }
+
+// The sampling fast path equals Propagate plus NoiseFactor's G·ξ (ξ padded
+// with zeros beyond NoiseDim), and Position equals PosVel's first two.
+func TestPropagateNoisyMatchesNoiseFactor(t *testing.T) {
+	type sampler interface {
+		filters.MotionModel
+		NoiseDim() int
+		PropagateNoisy(dst, x []float64, dt float64, xi []float64)
+		Position(x []float64) (px, py float64)
+	}
+	ms := []sampler{mustCV(t, 0.7), mustCA(t, 0.4), mustCTRV(t, 1.5, 0.6)}
+	rapid.Check(t, func(rt *rapid.T) {
+		dt := rapid.Float64Range(0, 2).Draw(rt, "dt")
+		for _, m := range ms {
+			n := m.Dim()
+			x, ξ := make([]float64, n), make([]float64, n)
+			for i := range x {
+				x[i] = rapid.Float64Range(-20, 20).Draw(rt, "x")
+			}
+			m.Normalize(x)
+			if n == 5 {
+				x[4] = rapid.SampledFrom([]float64{0, 1e-7, -0.02, 0.3, -2}).Draw(rt, "w")
+			}
+			for i := 0; i < m.NoiseDim(); i++ {
+				ξ[i] = rapid.Float64Range(-4, 4).Draw(rt, "xi")
+			}
+			got, want, G := make([]float64, n), make([]float64, n), make([]float64, n*n)
+			m.PropagateNoisy(got, x, dt, ξ[:m.NoiseDim()])
+			m.Propagate(want, x, dt)
+			m.NoiseFactor(G, x, dt)
+			for i := 0; i < n; i++ {
+				for j := 0; j < n; j++ {
+					want[i] += G[i*n+j] * ξ[j]
+				}
+			}
+			m.Normalize(want)
+			d := make([]float64, n)
+			m.Residual(d, got, want)
+			for i := range d {
+				if math.Abs(d[i]) > 1e-12*math.Max(1, math.Abs(want[i])) {
+					rt.Fatalf("%T: PropagateNoisy %v, Propagate + G·ξ %v", m, got, want)
+				}
+			}
+			pv := make([]float64, 4)
+			m.PosVel(pv, x, nil)
+			if px, py := m.Position(x); px != pv[0] || py != pv[1] {
+				rt.Fatalf("%T: Position differs from PosVel", m)
+			}
+		}
+	})
+}
