@@ -41,7 +41,7 @@ var (
 	}
 	crowdKeys  = []string{"prefix", "count", "class", "area", "speed", "legs"}
 	sensorKeys = []string{"off", "p_detect", "clutter_per_scan", "max_range", "fov_deg", "noise_sd",
-		"latency_ms", "jitter_ms", "clock_offset_ms", "phase_ms", "loss", "dropouts", "malformed", "resolution", "clutter_rate_max"}
+		"range_sd_frac", "latency_ms", "jitter_ms", "clock_offset_ms", "phase_ms", "loss", "dropouts", "malformed", "resolution", "clutter_rate_max"}
 	burstKeys = []string{"at_s", "count"}
 )
 
@@ -571,6 +571,11 @@ func (d *decoder) sensor(n *yaml.Node, path string, s *Sensor) {
 				d.errorf(f.line, p, "does not apply to %s sensor %s (it measures the platform itself)", s.Cfg.Kind, s.Cfg.Name)
 				continue
 			}
+		case "range_sd_frac":
+			if s.Cfg.Kind != configs.KindPinhole {
+				d.errorf(f.line, p, "applies to pinhole sensors only, %s is %s", s.Cfg.Name, s.Cfg.Kind)
+				continue
+			}
 		case "clutter_rate_max":
 			if s.Cfg.Kind != configs.KindRangeBearingRate {
 				d.errorf(f.line, p, "applies to range_bearing_rate sensors only, %s is %s", s.Cfg.Name, s.Cfg.Kind)
@@ -602,6 +607,8 @@ func (d *decoder) sensor(n *yaml.Node, path string, s *Sensor) {
 				}
 				s.Cfg.NoiseSD = v
 			}
+		case "range_sd_frac":
+			s.Cfg.RangeSDFrac, _ = d.numIn(f.val, p, 0, 1, "0..1")
 		case "resolution":
 			if v, ok := d.nums(f.val, p, dim, "kind "+s.Cfg.Kind); ok {
 				for i, x := range v {

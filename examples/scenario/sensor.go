@@ -154,10 +154,10 @@ func (g *sensorSim) scan(t float64) (targets, clutter int) {
 	sp := MountedPose(plat, c.Mount.X, c.Mount.Y, degToRad(c.Mount.YawDeg))
 	switch c.Kind {
 	case configs.KindGNSS:
-		// noise_sd is [north m, east m], the order of [lat, lon]
-		// (configs/REFERENCE.md).
-		e := sp.Pos.X + c.NoiseSD[1]*g.r.NormFloat64()
-		n := sp.Pos.Y + c.NoiseSD[0]*g.r.NormFloat64()
+		// noise_sd is [east m, north m]: the fix is filtered in site
+		// metres (configs/REFERENCE.md).
+		e := sp.Pos.X + c.NoiseSD[0]*g.r.NormFloat64()
+		n := sp.Pos.Y + c.NoiseSD[1]*g.r.NormFloat64()
 		lat, lon, _ := g.site.ENUToGeodetic(e, n, 0)
 		g.add(transport.Detection{Dim: 2, Z: [3]float64{lat, lon}})
 		return 0, 0
