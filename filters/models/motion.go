@@ -349,10 +349,22 @@ func turnFns(θ float64) (s, c, ds, dc float64) {
 	return s, c, ds, dc
 }
 
+// turnSC is turnFns without the derivatives (the propagation hot path).
+func turnSC(θ float64) (s, c float64) {
+	if math.Abs(θ) < turnSeriesBelow {
+		t2 := θ * θ
+		s = 1 - t2*(1.0/6)*(1-t2*(1.0/20)*(1-t2*(1.0/42)*(1-t2*(1.0/72))))
+		c = θ * 0.5 * (1 - t2*(1.0/12)*(1-t2*(1.0/30)*(1-t2*(1.0/56)*(1-t2*(1.0/90)))))
+		return s, c
+	}
+	h := math.Sin(θ / 2)
+	return math.Sin(θ) / θ, 2 * h * h / θ
+}
+
 // Propagate applies the CTRV transition.
 func (*CTRV) Propagate(dst, x []float64, dt float64) {
 	v, yaw, w := x[2], x[3], x[4]
-	s, c, _, _ := turnFns(w * dt)
+	s, c := turnSC(w * dt)
 	sy, cy := math.Sincos(yaw)
 	vt := v * dt
 	dst[0] = x[0] + vt*(cy*s-sy*c)
@@ -445,7 +457,7 @@ func halfTurn(θ float64) (sh, ch float64) {
 func (m *CTRV) PropagateNoisy(dst, x []float64, dt float64, ξ []float64) {
 	v, yaw, w := x[2], x[3], x[4]
 	θ := w * dt
-	s, c, _, _ := turnFns(θ)
+	s, c := turnSC(θ)
 	sy, cy := math.Sincos(yaw)
 	sh, ch := halfTurn(θ)
 	smid, cmid := sy*ch+cy*sh, cy*ch-sy*sh

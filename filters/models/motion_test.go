@@ -157,6 +157,14 @@ func TestTurnFnsContinuity(t *testing.T) {
 			}
 		}
 	}
+	// turnSC is the same s and c.
+	for _, θ := range []float64{0, 1e-8, -0.03, turnSeriesBelow, 0.2, -1.7} {
+		s, c, _, _ := turnFns(θ)
+		s2, c2 := turnSC(θ)
+		if s != s2 || c != c2 {
+			t.Errorf("θ=%v: turnSC (%v, %v), turnFns (%v, %v)", θ, s2, c2, s, c)
+		}
+	}
 	// Limits at zero: s → 1, c → 0, s' → 0, c' → 1/2 (Taylor series of
 	// sinθ/θ and (1−cosθ)/θ, common practice).
 	s, c, ds, dc := turnFns(0)
