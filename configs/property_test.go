@@ -125,8 +125,8 @@ func TestPropertyRoundTrip(t *testing.T) {
 // makes Parse fail with exactly one message, and it names that field.
 func TestPropertyOneBreakOneError(t *testing.T) {
 	breaks := []struct {
-		path   string
-		break_ func(c *Config)
+		path  string
+		apply func(c *Config)
 	}{
 		{"broker.qos", func(c *Config) { c.Broker.QoS = 3 }},
 		{"sensors[0].noise_sd", func(c *Config) { c.Sensors[0].NoiseSD = append(c.Sensors[0].NoiseSD, 1) }},
@@ -153,7 +153,7 @@ func TestPropertyOneBreakOneError(t *testing.T) {
 			c.Sensors[1].NoiseSD = append([]float64(nil), c.Sensors[0].NoiseSD...)
 		}
 		b := rapid.SampledFrom(breaks).Draw(t, "break")
-		b.break_(&c)
+		b.apply(&c)
 		out, err := Marshal(&c)
 		if err != nil {
 			t.Fatal(err)
