@@ -432,3 +432,34 @@ func TestPropagateNoisyMatchesNoiseFactor(t *testing.T) {
 		}
 	})
 }
+
+// PosVel's Jacobian against central finite differences (it carries every
+// target measurement Jacobian through the chain rule).
+func TestPosVelJacobians(t *testing.T) {
+	rapid.Check(t, func(rt *rapid.T) {
+		for _, m := range []filters.MotionModel{mustCV(t, 1), mustCA(t, 1), mustCTRV(t, 1, 1)} {
+			n := m.Dim()
+			x := make([]float64, n)
+			for i := range x {
+				x[i] = rapid.Float64Range(-20, 20).Draw(rt, "x")
+			}
+			pv, J := make([]float64, 4), make([]float64, 4*n)
+			m.PosVel(pv, x, J)
+			xp, xm, pp, pm := make([]float64, n), make([]float64, n), make([]float64, 4), make([]float64, 4)
+			for j := 0; j < n; j++ {
+				h := 1e-6 * math.Max(1, math.Abs(x[j]))
+				copy(xp, x)
+				copy(xm, x)
+				xp[j] += h
+				xm[j] -= h
+				m.PosVel(pp, xp, nil)
+				m.PosVel(pm, xm, nil)
+				for i := 0; i < 4; i++ {
+					if d := math.Abs(J[i*n+j] - (pp[i]-pm[i])/(2*h)); d > 1e-6 {
+						rt.Fatalf("%T: ∂pv[%d]/∂x[%d] off by %g", m, i, j, d)
+					}
+				}
+			}
+		}
+	})
+}

@@ -326,6 +326,30 @@ func TestWeightsStayNormalised(t *testing.T) {
 	})
 }
 
+// The summary averages angles on the circle: a cloud straddling ±π has its
+// mean near ±π, not near 0 as a naive average would give.
+func TestStateAveragesYawAcrossWrap(t *testing.T) {
+	ctrv, _ := models.NewCTRV(1, 1)
+	p, _ := New(ctrv, Config{Particles: 5000, Seed1: 2})
+	S0 := make([]float64, 25)
+	for i, sd := range []float64{1, 1, 1, 0.1, 0.05} {
+		S0[i*5+i] = sd
+	}
+	if err := p.Init([]float64{0, 0, 3, math.Pi - 0.01, 0}, S0); err != nil {
+		t.Fatal(err)
+	}
+	st := p.State()
+	if d := models.WrapAngle(st.X[3] - (math.Pi - 0.01)); math.Abs(d) > 0.01 {
+		t.Errorf("mean yaw %v, want π − 0.01 within 0.01 (5 MC s.d. = 5·0.1/√5000 ≈ 0.007)", st.X[3])
+	}
+	// Its s.d. is the cloud's (0.1), not that of a split ±π cloud (≈ π).
+	P := make([]float64, 25)
+	st.Covariance(P)
+	if sd := math.Sqrt(P[3*5+3]); math.Abs(sd-0.1) > 0.01 {
+		t.Errorf("yaw s.d. %v, want 0.1 ± 0.01 (relative MC s.d. √(1/2N) = 1%%)", sd)
+	}
+}
+
 // Same seed, same inputs: bit-identical runs; and a snapshot taken with
 // CopyFrom continues exactly like the original (random source included).
 func TestRepeatableAndCopyFrom(t *testing.T) {
@@ -504,7 +528,7 @@ func TestZeroAllocsSteadyState(t *testing.T) {
 // The measurements follow an invented yard tractor on a gentle curve
 // (4 m/s, 0.1 rad/s, 20 Hz) so the cloud stays where a tracker keeps it;
 // every 400 steps the scene restarts (outside the timer).
-func BenchmarkStepCTRVRangeBearing1000(b *testing.B) {
+func benchStep(b *testing.B, summary bool) {
 	p, rb := newCTRVFilter(b, 1000, 1)
 	ctrv, _ := models.NewCTRV(0, 0)
 	Rs := []float64{0.5, 0, 0, 0.02}
@@ -534,6 +558,14 @@ func BenchmarkStepCTRVRangeBearing1000(b *testing.B) {
 		_ = p.Predict(dt)
 		_ = p.Prepare(rb, Rs)
 		_, _ = p.Update(z)
-		_ = p.State()
+		if summary {
+			_ = p.State()
+		}
 	}
 }
+
+func BenchmarkStepCTRVRangeBearing1000(b *testing.B) { benchStep(b, true) }
+
+// The same step without forming the Gaussian summary (an engine that reads
+// State only when it publishes pays this between outputs).
+func BenchmarkStepCTRVRangeBearing1000NoSummary(b *testing.B) { benchStep(b, false) }
