@@ -62,7 +62,8 @@ func GeodeticToECEF(latDeg, lonDeg, h float64) (x, y, z float64) {
 // (degrees) and ellipsoidal height (m) by Bowring's iteration on the reduced
 // latitude (Bowring 1976, "Transformation from spatial to geographical
 // coordinates", Survey Review 23(181)). One pass is already sub-millimetre
-// for terrestrial points; we iterate to convergence (at most 6 passes).
+// for terrestrial points; we iterate until the latitude moves by less than
+// 1e-14 rad (0.06 nm on the ground), at most 5 passes.
 //
 // The height uses h = p·cosφ + z·sinφ − a²/N, which holds at every latitude
 // (no division by cosφ at the poles).
@@ -80,10 +81,10 @@ func ECEFToGeodetic(x, y, z float64) (latDeg, lonDeg, h float64) {
 	// Start from the reduced latitude of the spherical guess.
 	β := math.Atan2(z, (1-F)*p)
 	var φ float64
-	for i := 0; i < 6; i++ {
+	for i := 0; i < 5; i++ {
 		sβ, cβ := math.Sincos(β)
 		φNew := math.Atan2(z+Ep2*B*sβ*sβ*sβ, p-E2*A*cβ*cβ*cβ)
-		converged := i > 0 && math.Abs(φNew-φ) < 1e-15
+		converged := i > 0 && math.Abs(φNew-φ) < 1e-14
 		φ = φNew
 		if converged {
 			break
