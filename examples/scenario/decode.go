@@ -177,13 +177,20 @@ func (d *decoder) mapping(n *yaml.Node, path string, allowed []string) *mapping 
 		if k == nil {
 			return m
 		}
-		if k.Kind != yaml.ScalarNode || k.Tag == "!!merge" {
+		if k.Kind == yaml.ScalarNode && k.Tag == "!!merge" {
+			d.errorf(k.Line, path, "uses a merge key (<<); write the keys out, so each value has one place in the file")
+			continue
+		}
+		if k.Kind != yaml.ScalarNode {
 			d.errorf(k.Line, path, "has a key that is not a plain name (%s)", describe(k))
 			continue
 		}
 		name := k.Value
 		if allowed != nil && !contains(allowed, name) {
 			msg := fmt.Sprintf("unknown key %q", name)
+			if path != "" {
+				msg = "has " + msg
+			}
 			if s := closest(name, allowed); s != "" {
 				msg += fmt.Sprintf(" (did you mean %s?)", s)
 			} else {
@@ -211,10 +218,14 @@ func contains(list []string, s string) bool {
 	return false
 }
 
-// closest suggests the allowed key within edit distance 2 of a mistyped one.
+// closest suggests the allowed key within edit distance 2 of a mistyped one,
+// or the one it abbreviates (latency → latency_ms).
 func closest(s string, allowed []string) string {
 	best, bestD := "", 3
 	for _, a := range allowed {
+		if len(s) >= 3 && strings.HasPrefix(a, s) {
+			return a
+		}
 		if d := editDistance(s, a); d < bestD {
 			best, bestD = a, d
 		}
@@ -367,11 +378,21 @@ func (d *decoder) nums(n *yaml.Node, path string, want int, what string) ([]floa
 	return out, good
 }
 
-// point reads [x, y] in metres.
+// maxCoord bounds site coordinates and velocities: 1000 km (or km/s) is far
+// beyond any site, and keeps every later sum finite.
+const maxCoord = 1e6
+
+// point reads [x, y] in metres (or m/s).
 func (d *decoder) point(n *yaml.Node, path string) (Vec, bool) {
 	v, ok := d.nums(n, path, 2, "a point [x, y]")
 	if !ok {
 		return Vec{}, false
+	}
+	for i, x := range v {
+		if math.Abs(x) > maxCoord {
+			d.errorf(line(n), fmt.Sprintf("%s[%d]", path, i), "is %s, beyond ±%g", fmtNum(x), maxCoord)
+			return Vec{}, false
+		}
 	}
 	return Vec{v[0], v[1]}, true
 }

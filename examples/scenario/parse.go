@@ -203,6 +203,10 @@ func (d *decoder) loadConfig(ref, dir string, ln int) *configs.Config {
 	if !filepath.IsAbs(path) {
 		path = filepath.Join(dir, ref)
 	}
+	if _, err := os.Stat(path); err != nil {
+		d.errorf(ln, "config", "is %q: neither a shipped config (%s) nor a readable file: %v", ref, strings.Join(configs.Examples(), ", "), err)
+		return nil
+	}
 	c, err := configs.Load(path)
 	if err != nil {
 		var list *configs.ErrorList
@@ -386,7 +390,7 @@ func (d *decoder) targets(n *yaml.Node, sc *Scenario) {
 				tg.Speed, _ = d.numIn(v, join(path, "speed"), 0, 60, "0..60 m/s")
 			}
 			if v := need("heading_deg"); v != nil {
-				h, _ := d.num(v, join(path, "heading_deg"))
+				h, _ := d.numIn(v, join(path, "heading_deg"), -360, 360, "within ±360°")
 				tg.Heading = degToRad(h)
 			}
 			if v := need("turn_rate_deg_s"); v != nil {
@@ -456,7 +460,10 @@ func (d *decoder) crowds(n *yaml.Node, sc *Scenario) {
 		}
 		if v := m.get("area"); v != nil {
 			area, ok = d.nums(v, join(path, "area"), 4, "an area [x_min, y_min, x_max, y_max]")
-			if ok && (area[2]-area[0] < 1 || area[3]-area[1] < 1) {
+			if ok && slices.ContainsFunc(area, func(x float64) bool { return math.Abs(x) > maxCoord }) {
+				d.errorf(line(v), join(path, "area"), "reaches beyond ±%g m", maxCoord)
+				ok = false
+			} else if ok && (area[2]-area[0] < 1 || area[3]-area[1] < 1) {
 				d.errorf(line(v), join(path, "area"), "must have x_max and y_max at least 1 m above x_min and y_min")
 				ok = false
 			}
