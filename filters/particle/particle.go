@@ -566,7 +566,7 @@ func (p *Filter) CopyFrom(src filters.Filter) error {
 	if o.n != p.n || o.np != p.np {
 		return fmt.Errorf("%w: CopyFrom dimension %d×%d into %d×%d", ErrInput, o.np, o.n, p.np, p.n)
 	}
-	p.f, p.below = o.f, o.below
+	p.f, p.sampler, p.nNoise, p.below = o.f, o.sampler, o.nNoise, o.below
 	p.pcg = o.pcg
 	copy(p.x, o.x)
 	copy(p.logw, o.logw)
