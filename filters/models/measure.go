@@ -105,7 +105,7 @@ func (t *target) rel(x []float64, jac bool) (dx, dy, r, ux, uy float64) {
 		t.k.PosVel(t.pv[:], x, nil)
 	}
 	dx, dy = t.pv[0]-t.sx, t.pv[1]-t.sy
-	return dx, dy, math.Hypot(dx, dy), t.pv[2] - t.svx, t.pv[3] - t.svy
+	return dx, dy, math.Sqrt(dx*dx + dy*dy), t.pv[2] - t.svx, t.pv[3] - t.svy
 }
 
 // relPos returns the target's offset from the sensor (site axes) and range.
