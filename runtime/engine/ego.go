@@ -1,48 +1,6 @@
 package engine
 
-import (
-	"math"
-)
-
-// odometryModel measures the platform's own speed and yaw rate,
-// z = [v, yaw_rate], from the ego state [px, py, v, yaw, yawrate].
-type odometryModel struct{}
-
-func (odometryModel) Dim() int { return 2 }
-func (odometryModel) Predict(z, x []float64) {
-	z[0], z[1] = x[2], x[4]
-}
-func (odometryModel) Jacobian(H, x []float64) {
-	clear(H[:10])
-	H[2], H[5+4] = 1, 1
-}
-func (odometryModel) Residual(dst, a, b []float64) {
-	dst[0], dst[1] = a[0]-b[0], a[1]-b[1]
-}
-
-// gnssModel measures the antenna position in the site frame, z = [east,
-// north] metres, after the WGS 84 fix has been converted about the site
-// origin. The antenna sits at the sensor mount: p + Rot(yaw)·mount.
-type gnssModel struct {
-	mx, my float64
-}
-
-func (gnssModel) Dim() int { return 2 }
-func (g *gnssModel) Predict(z, x []float64) {
-	c, s := math.Cos(x[3]), math.Sin(x[3])
-	z[0] = x[0] + c*g.mx - s*g.my
-	z[1] = x[1] + s*g.mx + c*g.my
-}
-func (g *gnssModel) Jacobian(H, x []float64) {
-	c, s := math.Cos(x[3]), math.Sin(x[3])
-	clear(H[:10])
-	H[0], H[5+1] = 1, 1
-	H[3] = -s*g.mx - c*g.my
-	H[5+3] = c*g.mx - s*g.my
-}
-func (gnssModel) Residual(dst, a, b []float64) {
-	dst[0], dst[1] = a[0]-b[0], a[1]-b[1]
-}
+import "math"
 
 // Ego prior when the estimator starts: the configured pose, loosely when
 // GNSS will correct it, tightly (known start pose) when nothing can.
@@ -64,9 +22,10 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 	case kindOdometry:
 		z[0], z[1] = d.z[0], d.z[1]
 	case kindGNSS:
-		east, north, _ := e.site.GeodeticToENU(d.z[0], d.z[1], e.siteAlt)
-		z[0], z[1] = east, north
-		e.gnss.mx, e.gnss.my = s.mount.X, s.mount.Y
+		if err := s.gnss.Preprocess(z, d.z[:2]); err != nil {
+			e.counters.FilterErrors++ // cannot happen: Ingest checked the fix
+			return
+		}
 	}
 	if !st.egoInit {
 		p := e.fixedPose
@@ -99,7 +58,7 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 	if s.kind == kindOdometry {
 		err = st.ego.Prepare(e.odo, rs)
 	} else {
-		err = st.ego.Prepare(e.gnss, rs)
+		err = st.ego.Prepare(s.gnss, rs)
 	}
 	if err != nil {
 		e.counters.FilterErrors++

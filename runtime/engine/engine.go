@@ -74,7 +74,10 @@ type sensorRT struct {
 	name        string
 	kind        int
 	dim         int
-	geom        *sensorGeom // tracking sensors
+	tm          models.TargetSensor    // tracking sensors: the measurement model with its geometry
+	pert        [3]models.TargetSensor // moving platform: copies placed with the ego pose nudged in x, y, yaw
+	pinhole     *models.Pinhole        // tm, when the kind is pinhole (range-dependent noise)
+	gnss        *models.GNSS           // ego sensors
 	noiseSD     []float64
 	rsDefault   [9]float64
 	rangeSDFrac float64
@@ -124,12 +127,9 @@ type Engine struct {
 	fixedPose      Pose
 	egoModel       filters.MotionModel
 	mkEgo          func() (filters.Filter, error)
-	site           geo.Local
-	siteAlt        float64
 	egoPrior       [5]float64 // s.d. of the ego prior, state order
 	egoActive      bool       // this scan's noise carries the ego pose uncertainty
-	odo            *odometryModel
-	gnss           *gnssModel
+	odo            *models.Odometry
 
 	st   state
 	log  []*scan // processed scans in the lag window, in processing order
@@ -265,10 +265,6 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		if e.st.ego, err = e.mkEgo(); err != nil {
 			return nil, err
 		}
-		e.siteAlt = cfg.Site.Alt
-		if e.site, err = geo.NewLocal(cfg.Site.Lat, cfg.Site.Lon, cfg.Site.Alt); err != nil {
-			return nil, fmt.Errorf("engine: site: %w", err)
-		}
 	default:
 		return nil, fmt.Errorf("engine: platform.motion %q: need fixed or moving", cfg.Platform.Motion)
 	}
@@ -300,11 +296,37 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 			if !e.platformMoving {
 				return nil, fmt.Errorf("engine: sensors[%d] (%s): kind %s needs platform.motion moving", i, sc.Name, sc.Kind)
 			}
-		default:
-			if k == kindPinhole && !(sc.FX > 0) {
-				return nil, fmt.Errorf("engine: sensors[%d] (%s): pinhole needs fx > 0", i, sc.Name)
+			if k == kindGNSS {
+				mount := models.Mount{X: s.mount.X, Y: s.mount.Y, Yaw: s.mount.Yaw}
+				if s.gnss, err = models.NewGNSS(e.egoModel, cfg.Site.Lat, cfg.Site.Lon, cfg.Site.Alt, mount); err == nil {
+					err = s.gnss.SetNoise(sc.NoiseSD)
+				}
+				if err != nil {
+					return nil, fmt.Errorf("engine: sensors[%d] (%s): %w", i, sc.Name, err)
+				}
 			}
-			s.geom = newSensorGeom(k, e.motion, s.mount, sc.MaxRange, sc.FOVDeg, sc.FX, sc.CX)
+		default:
+			spec := models.Spec{Kind: sc.Kind, Mount: models.Mount{X: s.mount.X, Y: s.mount.Y, Yaw: s.mount.Yaw},
+				Coverage: models.Coverage{MaxRange: sc.MaxRange, FOV: sc.FOVDeg * math.Pi / 180},
+				NoiseSD:  sc.NoiseSD, FX: sc.FX, CX: sc.CX, RangeSDFrac: sc.RangeSDFrac}
+			if spec.Coverage.FOV >= 2*math.Pi {
+				spec.Coverage.FOV = 0 // all round
+			}
+			for c := -1; c < 3; c++ {
+				if c >= 0 && !e.platformMoving {
+					break
+				}
+				tm, err := models.NewTargetSensor(e.motion, spec)
+				if err != nil {
+					return nil, fmt.Errorf("engine: sensors[%d] (%s): %w", i, sc.Name, err)
+				}
+				if c < 0 {
+					s.tm = tm
+				} else {
+					s.pert[c] = tm
+				}
+			}
+			s.pinhole, _ = s.tm.(*models.Pinhole)
 		}
 		e.sensors = append(e.sensors, s)
 	}
@@ -319,8 +341,9 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		if !hasGNSS {
 			e.egoPrior[0], e.egoPrior[1], e.egoPrior[3] = egoKnownPosSD, egoKnownPosSD, egoKnownYawSD
 		}
-		e.odo = &odometryModel{}
-		e.gnss = &gnssModel{}
+		if e.odo, err = models.NewOdometry(e.egoModel); err != nil {
+			return nil, err
+		}
 	}
 	for _, r := range rejectReasons {
 		e.rejectReason = append(e.rejectReason, transport.ReasonCount{Reason: r})
@@ -331,7 +354,7 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 // rejectReasons is the fixed order of the health message's counters.rejected
 // (the decoder's reason codes first, then the engine's own).
 var rejectReasons = []string{"bad_json", "unknown_sensor", "bad_dims", "non_finite", "bad_cov",
-	"time_implausible", "too_large", "bad_version", "duplicate", "other"}
+	"time_implausible", "too_large", "bad_version", "duplicate", "out_of_range", "other"}
 
 func filterByName(name string) (func(filters.MotionModel) (filters.Filter, error), error) {
 	switch name {
@@ -500,6 +523,11 @@ func (e *Engine) validate(s *sensorRT, m *transport.Measurement) (string, error)
 		for j := 0; j < d.Dim; j++ {
 			if math.IsNaN(d.Z[j]) || math.IsInf(d.Z[j], 0) {
 				return "non_finite", fmt.Errorf("%w: %s dets[%d].z[%d]", ErrNonFinite, s.name, i, j)
+			}
+		}
+		if s.kind == kindGNSS {
+			if err := geo.CheckGeodetic(d.Z[0], d.Z[1], 0); err != nil {
+				return "out_of_range", fmt.Errorf("engine: %s dets[%d]: %w", s.name, i, err)
 			}
 		}
 		if d.HasR {

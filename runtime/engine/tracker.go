@@ -38,7 +38,10 @@ type workspace struct {
 	trackCego      [][9]float64 // ego pose uncertainty in measurement space, per track
 	rsTmp          [9]float64
 	egoP3          [9]float64 // covariance of the ego [px, py, yaw]
-	pert           [3]sensorGeom
+	zk, dz         [3]float64
+	rsDet          [9]float64
+	pk             [2]float64
+	ck             [4]float64
 	x0             [6]float64
 	S0             [36]float64
 	z              [3]float64
@@ -149,25 +152,18 @@ func (e *Engine) platformPose() Pose {
 	return Pose{X: x[0], Y: x[1], Yaw: x[3], VX: x[2] * math.Cos(x[3]), VY: x[2] * math.Sin(x[3]), YawRate: x[4]}
 }
 
-// trackRs is the measurement noise square root a track is gated with. A
-// pinhole detector's range s.d. grows with range: hypot(noise_sd[1],
-// range_sd_frac·r), evaluated at the track's predicted range.
-func (s *sensorRT) noiseSqrt(dst *[9]float64, r float64) {
-	*dst = s.rsDefault
-	if s.kind == kindPinhole && s.rangeSDFrac > 0 {
-		dst[3] = math.Hypot(s.noiseSD[1], s.rangeSDFrac*r)
-	}
-}
-
 // trackScan is one scan of a tracking sensor: gate, assign by global
 // nearest neighbour, update, count misses where the sensor could see,
 // give birth to tracks from detections outside every gate, and retire.
 func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	st := &e.st
 	ws := &e.ws
-	g := s.geom
-	g.SetPlatform(e.platformPose())
-	egoUnc := e.egoUncertainty(g)
+	g := s.tm
+	if err := g.SetPlatform(e.platformPose().platform()); err != nil {
+		e.counters.FilterErrors++ // a non-finite ego estimate: nothing can be placed
+		return
+	}
+	egoUnc := e.egoUncertainty(s)
 	n := e.motion.Dim()
 	D := len(sc.dets)
 	T := len(st.recs)
@@ -180,15 +176,17 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	ws.detGated = growBool(ws.detGated, D)
 	ws.order = ws.order[:0]
 	var detEig float64
-	var R [9]float64
+	rs := &ws.rsDet // a local array would escape through the interface call
 	for j := range sc.dets {
 		d := &sc.dets[j]
-		e.detCovariance(s, d, &R)
-		if g.Inverse(d.z[:m], R[:m*m], &ws.detPos[j], &ws.detCov[j]) {
+		if !e.detNoiseSqrt(s, d, rs) {
+			continue
+		}
+		if g.Birth(ws.detPos[j][:], ws.detCov[j][:], d.z[:m], rs[:m*m]) == nil {
 			ws.detOK[j] = true
 			c := &ws.detCov[j]
 			if egoUnc {
-				e.addEgoToSite(d.z[:m], R[:m*m], ws.detPos[j], c)
+				e.addEgoToSite(s, d.z[:m], rs[:m*m], ws.detPos[j], c)
 			}
 			detEig = math.Max(detEig, maxEig2(c[0], c[1], c[3]))
 			ws.order = append(ws.order, j)
@@ -225,8 +223,11 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 		if !g.Visible(px, py) {
 			continue
 		}
-		s.noiseSqrt(&ws.trackRs[i], math.Hypot(px-g.sx, py-g.sy))
-		if egoUnc && !e.addEgoToMeas(g, i, m) {
+		if g.NoiseSqrt(ws.trackRs[i][:m*m], gs.X) != nil {
+			e.counters.FilterErrors++
+			continue
+		}
+		if egoUnc && !e.addEgoToMeas(s, i, m, gs.X) {
 			continue
 		}
 		if f.Prepare(g, ws.trackRs[i][:m*m]) != nil {
@@ -330,33 +331,27 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	}
 }
 
-// detCovariance is the covariance R of one detection (m×m row-major).
-func (e *Engine) detCovariance(s *sensorRT, d *storedDet, R *[9]float64) {
+// detNoiseSqrt writes the noise square root of one detection: its own R
+// when it carries one, else the configured noise (a pinhole detector's at
+// the measured range).
+func (e *Engine) detNoiseSqrt(s *sensorRT, d *storedDet, rs *[9]float64) bool {
 	m := s.dim
-	if d.hasR {
-		copy(R[:], d.r[:m*m])
-		return
-	}
-	var rs [9]float64
-	r := 0.0
-	if s.kind == kindPinhole {
-		r = d.z[1]
-	}
-	s.noiseSqrt(&rs, r)
-	for i := 0; i < m; i++ {
-		for j := 0; j < m; j++ {
-			var v float64
-			for k := 0; k < m; k++ {
-				v += rs[i*m+k] * rs[j*m+k]
-			}
-			R[i*m+j] = v
+	switch {
+	case d.hasR:
+		copy(rs[:], d.rs[:m*m])
+	case s.pinhole != nil:
+		if s.pinhole.NoiseSqrtAtRange(rs[:4], d.z[1]) != nil {
+			return false
 		}
+	default:
+		copy(rs[:], s.rsDefault[:m*m])
 	}
+	return true
 }
 
 // prepareFor makes sure track i's filter is prepared with the noise that
 // goes with detection j (its own R when it carries one).
-func (e *Engine) prepareFor(f filters.Filter, g *sensorGeom, s *sensorRT, i, j int, d *storedDet) bool {
+func (e *Engine) prepareFor(f filters.Filter, g filters.MeasurementModel, s *sensorRT, i, j int, d *storedDet) bool {
 	ws := &e.ws
 	m := s.dim
 	want := -1
@@ -620,11 +615,11 @@ func (e *Engine) solveCluster(ps []pair, T int, missCost float64) {
 }
 
 // egoUncertainty prepares, on a moving platform, the ego pose covariance
-// and three copies of the sensor geometry with the platform pose nudged in
-// x, y and yaw, for first-order propagation of the ego uncertainty into
-// each measurement's noise (the usual remedy when the sensor pose itself is
-// estimated: R + G·P_ego·Gᵀ, G = ∂h/∂(ego pose)).
-func (e *Engine) egoUncertainty(g *sensorGeom) bool {
+// and places the three copies of the sensor model with the platform pose
+// nudged in x, y and yaw, for first-order propagation of the ego
+// uncertainty into each measurement's noise (the usual remedy when the
+// sensor pose itself is estimated: R + G·P_ego·Gᵀ, G = ∂h/∂(ego pose)).
+func (e *Engine) egoUncertainty(s *sensorRT) bool {
 	e.egoActive = e.platformMoving && e.st.egoInit
 	if !e.egoActive {
 		return false
@@ -641,7 +636,6 @@ func (e *Engine) egoUncertainty(g *sensorGeom) bool {
 	}
 	base := e.platformPose()
 	for k := 0; k < 3; k++ {
-		ws.pert[k] = *g
 		p := base
 		switch k {
 		case 0:
@@ -651,7 +645,10 @@ func (e *Engine) egoUncertainty(g *sensorGeom) bool {
 		case 2:
 			p.Yaw += egoStep
 		}
-		ws.pert[k].SetPlatform(p)
+		if s.pert[k].SetPlatform(p.platform()) != nil {
+			e.egoActive = false
+			return false
+		}
 	}
 	return true
 }
@@ -661,15 +658,16 @@ func (e *Engine) egoUncertainty(g *sensorGeom) bool {
 const egoStep = 1e-6
 
 // addEgoToMeas adds G·P_ego·Gᵀ to track i's measurement noise and
-// refactors it. G is by forward differences of h at the predicted target.
-func (e *Engine) addEgoToMeas(g *sensorGeom, i, m int) bool {
+// refactors it. G is by forward differences of h at the predicted state x.
+func (e *Engine) addEgoToMeas(s *sensorRT, i, m int, x []float64) bool {
 	ws := &e.ws
-	var z0, zk, dz [3]float64
+	zk, dz := ws.zk[:m], ws.dz[:m]
+	z0 := ws.z[:m]
 	var G [9]float64 // m×3
-	g.predictPV(z0[:], ws.pv)
+	s.tm.Predict(z0, x)
 	for k := 0; k < 3; k++ {
-		ws.pert[k].predictPV(zk[:], ws.pv)
-		g.Residual(dz[:], zk[:], z0[:])
+		s.pert[k].Predict(zk, x)
+		s.tm.Residual(dz, zk, z0)
 		for r := 0; r < m; r++ {
 			G[r*3+k] = dz[r] / egoStep
 		}
@@ -700,13 +698,12 @@ func (e *Engine) addEgoToMeas(g *sensorGeom, i, m int) bool {
 
 // addEgoToSite adds the ego pose uncertainty to a detection's site
 // position covariance c.
-func (e *Engine) addEgoToSite(z, R []float64, pos [2]float64, c *[4]float64) {
+func (e *Engine) addEgoToSite(s *sensorRT, z, rs []float64, pos [2]float64, c *[4]float64) {
 	ws := &e.ws
 	var G [6]float64 // 2×3
-	var pk [2]float64
-	var ck [4]float64
+	pk, ck := ws.pk[:], ws.ck[:]
 	for k := 0; k < 3; k++ {
-		if !ws.pert[k].Inverse(z, R, &pk, &ck) {
+		if s.pert[k].Birth(pk, ck, z, rs) != nil {
 			return
 		}
 		G[k] = (pk[0] - pos[0]) / egoStep
