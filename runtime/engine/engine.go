@@ -24,6 +24,7 @@ import (
 	"github.com/godwit-fusion/godwit/filters"
 	"github.com/godwit-fusion/godwit/filters/geo"
 	"github.com/godwit-fusion/godwit/filters/models"
+	"github.com/godwit-fusion/godwit/filters/particle"
 	"github.com/godwit-fusion/godwit/runtime/assign"
 	"github.com/godwit-fusion/godwit/transport"
 	"gonum.org/v1/gonum/stat/distuv"
@@ -48,7 +49,6 @@ var (
 	ErrDuplicate   = errors.New("engine: repeated message (same sensor, time and seq), ignored")
 	ErrEgoSingle   = errors.New("engine: an ego sensor message must carry exactly one detection")
 	ErrEgoOnFixed  = errors.New("engine: ego sensor on a fixed platform")
-	errNoFilterPF  = errors.New("engine: tracker.filter pf is not available in this build")
 	errUnknownKind = errors.New("engine: unknown sensor kind")
 )
 
@@ -66,6 +66,8 @@ type Options struct {
 	BirthSpeedSD float64
 	// MaxScans bounds the lag-window log (memory); 0 means 4096 scans.
 	MaxScans int
+	// Particles per track for tracker.filter pf; 0 means 500.
+	Particles int
 }
 
 // sensorRT is a configured sensor at run time: its geometry and noise, and
@@ -135,20 +137,21 @@ type Engine struct {
 	log  []*scan // processed scans in the lag window, in processing order
 	free []*scan
 
-	newestNs     int64
-	haveNewest   bool
-	horizon      *scan // newest scan pruned from the log; nothing at or before it is accepted
-	horizonCopy  scan
-	haveHorizon  bool
-	scratch      filters.Filter
-	egoScratch   filters.Filter
-	ws           workspace
-	solver       assign.Solver
-	outSeq       uint64
-	nextDueNs    int64
-	dueSet       bool
-	sinceEmit    int
-	rejectReason []transport.ReasonCount
+	newestNs      int64
+	haveNewest    bool
+	horizon       *scan // newest scan pruned from the log; nothing at or before it is accepted
+	horizonCopy   scan
+	haveHorizon   bool
+	scratch       filters.Filter
+	birthTemplate filters.Filter // pf only: the state every birth starts from
+	egoScratch    filters.Filter
+	ws            workspace
+	solver        assign.Solver
+	outSeq        uint64
+	nextDueNs     int64
+	dueSet        bool
+	sinceEmit     int
+	rejectReason  []transport.ReasonCount
 
 	counters Counters
 }
@@ -240,7 +243,7 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 	}
 	newF := opt.NewTrackFilter
 	if newF == nil {
-		newF, err = filterByName(tr.Filter)
+		newF, err = filterByName(tr.Filter, opt.Particles)
 		if err != nil {
 			return nil, err
 		}
@@ -248,6 +251,14 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 	e.mkFilter = func() (filters.Filter, error) { return newF(e.motion) }
 	if e.scratch, err = e.mkFilter(); err != nil {
 		return nil, fmt.Errorf("engine: track filter: %w", err)
+	}
+	if _, ok := e.scratch.(*particle.Filter); ok {
+		// A particle filter's random source is part of its state, and a
+		// spare filter's leftovers differ between an in-order run and a
+		// rewind: every birth starts from this pristine copy instead.
+		if e.birthTemplate, err = e.mkFilter(); err != nil {
+			return nil, err
+		}
 	}
 
 	switch cfg.Platform.Motion {
@@ -351,12 +362,18 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 	return e, nil
 }
 
+// Fixed seeds of the particle filters' random source: runs repeat.
+const (
+	pfSeed1 = 0x676f64776974 // arbitrary
+	pfSeed2 = 1
+)
+
 // rejectReasons is the fixed order of the health message's counters.rejected
 // (the decoder's reason codes first, then the engine's own).
 var rejectReasons = []string{"bad_json", "unknown_sensor", "bad_dims", "non_finite", "bad_cov",
 	"time_implausible", "too_large", "bad_version", "duplicate", "out_of_range", "other"}
 
-func filterByName(name string) (func(filters.MotionModel) (filters.Filter, error), error) {
+func filterByName(name string, particles int) (func(filters.MotionModel) (filters.Filter, error), error) {
 	switch name {
 	case "srkf", "srekf", "":
 		return func(m filters.MotionModel) (filters.Filter, error) { return filters.NewSREKF(m) }, nil
@@ -365,7 +382,12 @@ func filterByName(name string) (func(filters.MotionModel) (filters.Filter, error
 			return filters.NewSRUKF(m, filters.DefaultUTParams())
 		}, nil
 	case "pf":
-		return nil, errNoFilterPF
+		if particles <= 0 {
+			particles = 500
+		}
+		return func(m filters.MotionModel) (filters.Filter, error) {
+			return particle.New(m, particle.Config{Particles: particles, Seed1: pfSeed1, Seed2: pfSeed2})
+		}, nil
 	}
 	return nil, fmt.Errorf("engine: tracker.filter %q: need srkf, srekf, srukf or pf", name)
 }

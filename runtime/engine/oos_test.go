@@ -52,7 +52,7 @@ func sameTracks(a, b *transport.TracksMsg) string {
 func TestOutOfSequenceEqualsInOrder(t *testing.T) {
 	rapid.Check(t, func(rt *rapid.T) {
 		seed := rapid.Uint64().Draw(rt, "seed")
-		combo := rapid.IntRange(0, 2).Draw(rt, "filter")
+		combo := rapid.IntRange(0, 3).Draw(rt, "filter")
 		nTargets := rapid.IntRange(1, 4).Draw(rt, "targets")
 		clutter := rapid.Float64Range(0, 2).Draw(rt, "clutter")
 		r := rand.New(rand.NewPCG(seed, 7))
@@ -71,10 +71,13 @@ func TestOutOfSequenceEqualsInOrder(t *testing.T) {
 			cfg.Tracker.Motion, cfg.Tracker.Filter = "ctrv", "srukf"
 		case 2:
 			cfg.Tracker.Motion, cfg.Tracker.Filter = "ca", "srekf"
+		case 3:
+			cfg.Tracker.Motion, cfg.Tracker.Filter = "cv", "pf"
 		}
 		lag := int64(cfg.Timing.LagMS * 1e6)
 
-		inOrder, err := New(cfg, Options{})
+		opt := Options{Particles: 200}
+		inOrder, err := New(cfg, opt)
 		if err != nil {
 			rt.Fatal(err)
 		}
@@ -93,7 +96,7 @@ func TestOutOfSequenceEqualsInOrder(t *testing.T) {
 			order[i] = arr{i, msgs[i].m.TNs + r.Int64N(lag)}
 		}
 		sort.SliceStable(order, func(x, y int) bool { return order[x].t < order[y].t })
-		late, err := New(cfg, Options{})
+		late, err := New(cfg, opt)
 		if err != nil {
 			rt.Fatal(err)
 		}

@@ -487,6 +487,12 @@ func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
 		S0[4*n+4] = birthYawRateSD
 	}
 	f := st.flt[len(st.recs)]
+	if e.birthTemplate != nil {
+		if err := f.CopyFrom(e.birthTemplate); err != nil {
+			e.counters.FilterErrors++
+			return
+		}
+	}
 	if err := f.Init(x0[:n], S0[:n*n]); err != nil {
 		e.counters.FilterErrors++
 		return
