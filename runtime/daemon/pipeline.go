@@ -40,6 +40,7 @@ type Pipeline struct {
 	cfg     *configs.Config
 	eng     *engine.Engine
 	dec     *transport.Decoder
+	specs   []transport.SensorSpec
 	filters []string // sensor topics (MQTT filters) this pipeline listens to
 
 	meas   transport.Measurement
@@ -77,7 +78,7 @@ func NewPipeline(cfg *configs.Config, opt engine.Options, log *zap.Logger) (*Pip
 		log = zap.NewNop()
 	}
 	return &Pipeline{
-		cfg: cfg, eng: eng, dec: dec, filters: filters,
+		cfg: cfg, eng: eng, dec: dec, specs: specs, filters: filters,
 		tbuf: make([]byte, 0, 4096), hbuf: make([]byte, 0, 2048),
 		confirmed: make(map[uint64]struct{}),
 		log:       log,
@@ -94,6 +95,8 @@ func DecoderLimits(cfg *configs.Config) transport.Limits {
 	}
 	return transport.Limits{MaxPayloadBytes: cfg.Limits.MaxPayloadBytes, PastWindow: w, FutureWindow: w}
 }
+
+func (p *Pipeline) sensorSpecs() []transport.SensorSpec { return p.specs }
 
 // Topics lists the MQTT filters of the configured sensors, without repeats.
 func (p *Pipeline) Topics() []string { return p.filters }
