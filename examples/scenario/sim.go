@@ -179,22 +179,26 @@ func (sc *Scenario) Write(recording, truth io.Writer, opt Options) (Stats, error
 	if err != nil {
 		return Stats{}, err
 	}
+	return out.Stats, sc.writeOutput(out, recording, truth)
+}
+
+func (sc *Scenario) writeOutput(out *Output, recording, truth io.Writer) error {
 	rw, err := transport.NewRecordWriter(recording, transport.RecordOptions{
 		Note: sc.Note(out.Stats), Created: sc.Start, FlushEvery: -1,
 	})
 	if err != nil {
-		return Stats{}, err
+		return err
 	}
 	qos := byte(min(max(sc.Config.Broker.QoS, 0), 2))
 	for i := range out.Messages {
 		m := &out.Messages[i]
 		if err := rw.Write(m.RxNs, m.Topic, qos, false, m.Payload); err != nil {
 			rw.Close()
-			return Stats{}, err
+			return err
 		}
 	}
 	if err := rw.Close(); err != nil {
-		return Stats{}, err
+		return err
 	}
 	bw := bufio.NewWriterSize(truth, 64<<10)
 	var line []byte
@@ -202,35 +206,51 @@ func (sc *Scenario) Write(recording, truth io.Writer, opt Options) (Stats, error
 		line = AppendTruth(line[:0], &out.Truth[i])
 		line = append(line, '\n')
 		if _, err := bw.Write(line); err != nil {
-			return Stats{}, err
+			return err
 		}
 	}
-	return out.Stats, bw.Flush()
+	return bw.Flush()
 }
 
-// WriteDir writes DIR/recording.jsonl and DIR/truth.jsonl, creating DIR.
+// WriteDir runs the scenario and writes DIR/recording.jsonl and
+// DIR/truth.jsonl, creating DIR. Nothing is created when the run fails, and
+// the files appear whole: each is written under a temporary name first.
 func (sc *Scenario) WriteDir(dir string, opt Options) (Stats, error) {
+	out, err := sc.Simulate(opt)
+	if err != nil {
+		return Stats{}, err
+	}
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return Stats{}, err
 	}
-	rf, err := os.Create(filepath.Join(dir, "recording.jsonl"))
+	recPath, truthPath := filepath.Join(dir, "recording.jsonl"), filepath.Join(dir, "truth.jsonl")
+	rf, err := os.Create(recPath + ".part")
 	if err != nil {
 		return Stats{}, err
 	}
+	defer os.Remove(rf.Name())
 	defer rf.Close()
-	tf, err := os.Create(filepath.Join(dir, "truth.jsonl"))
+	tf, err := os.Create(truthPath + ".part")
 	if err != nil {
 		return Stats{}, err
 	}
+	defer os.Remove(tf.Name())
 	defer tf.Close()
-	st, err := sc.Write(rf, tf, opt)
-	if err != nil {
-		return st, err
+	if err := sc.writeOutput(out, rf, tf); err != nil {
+		return Stats{}, err
 	}
-	if err := rf.Close(); err != nil {
-		return st, err
+	for _, f := range []*os.File{rf, tf} {
+		if err := f.Close(); err != nil {
+			return Stats{}, err
+		}
 	}
-	return st, tf.Close()
+	if err := os.Rename(rf.Name(), recPath); err != nil {
+		return Stats{}, err
+	}
+	if err := os.Rename(tf.Name(), truthPath); err != nil {
+		return Stats{}, err
+	}
+	return out.Stats, nil
 }
 
 // AppendTruth appends one truth line (DESIGN.md: {"t_ns":...,"objects":
