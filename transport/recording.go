@@ -89,18 +89,18 @@ func NewRecordWriter(w io.Writer, opts RecordOptions) (*RecordWriter, error) {
 	if opts.FlushEvery > 0 {
 		rw.stop = make(chan struct{})
 		rw.wg.Add(1)
-		go rw.flushLoop(opts.FlushEvery)
+		go rw.flushLoop(rw.stop, opts.FlushEvery)
 	}
 	return rw, nil
 }
 
-func (rw *RecordWriter) flushLoop(every time.Duration) {
+func (rw *RecordWriter) flushLoop(stop <-chan struct{}, every time.Duration) {
 	defer rw.wg.Done()
 	t := time.NewTicker(every)
 	defer t.Stop()
 	for {
 		select {
-		case <-rw.stop:
+		case <-stop:
 			return
 		case <-t.C:
 			rw.Flush()

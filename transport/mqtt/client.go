@@ -190,7 +190,7 @@ func New(opts Options) (*Client, error) {
 		SetClientID(opts.ClientID).
 		SetCleanSession(opts.CleanSession).
 		SetKeepAlive(opts.KeepAlive).
-		SetPingTimeout(opts.KeepAlive/2+time.Second).
+		SetPingTimeout(opts.KeepAlive/2 + time.Second).
 		SetConnectTimeout(opts.ConnectTimeout).
 		SetWriteTimeout(opts.ConnectTimeout).
 		SetOrderMatters(true). // handlers run in arrival order on one goroutine
