@@ -257,7 +257,7 @@ func TestNoiseFreeDetectionsInvertToTruth(t *testing.T) {
 				const h = 1e-6
 				fd := (rng(tt+h) - rng(tt)) / h
 				if !near(d.Z[2], fd, 1e-4) {
-					t.Fatalf("radar at %.2f s: range rate %.6f, central difference %.6f", tt, d.Z[2], fd)
+					t.Fatalf("radar at %.2f s: range rate %.6f, forward difference %.6f", tt, d.Z[2], fd)
 				}
 			}
 			seen[c.Name]++
