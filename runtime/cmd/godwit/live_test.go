@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"net"
 	"os"
@@ -330,5 +331,87 @@ func TestLiveCommandsUsage(t *testing.T) {
 		if code != exitOK || !strings.Contains(out, "Examples:") {
 			t.Errorf("%s --help: exit %d, no example", c, code)
 		}
+	}
+}
+
+// replay --to-broker puts a recording back on the wire at its pace, t_ns
+// shifted by one constant; a live daemon fuses it into tracks.
+func TestReplayToBroker(t *testing.T) {
+	defer goleak.VerifyNone(t, goleak.IgnoreCurrent())
+	b, err := broker.Start(broker.Config{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	path, cfg := liveConfigFile(t, b.URL())
+	msgs := gatesim.Gate(cfg, 1500*time.Millisecond, 8)
+	// A message on a topic the configuration does not know is not re-sent.
+	msgs = append(msgs, gatesim.Msg{RxNs: msgs[len(msgs)-1].RxNs, Topic: "elsewhere/x", Payload: []byte(`{"a":1}`)})
+	rec := filepath.Join(t.TempDir(), "bench.jsonl")
+	if err := os.WriteFile(rec, gatesim.Recording(msgs), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	watch := connectPeer(t, b.URL(), cfg.Broker.ClientID+"-watch", time.Second)
+	defer watch.c.Disconnect(100)
+	watch.sub(t, cfg.Broker.ClientID+"/#")
+	watch.sub(t, "elsewhere/#")
+
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	daemonRes := startCmd(t, ctx, "run", "--config", path, "--log-level", "error")
+	if !watch.await(5*time.Second, func(m paho.Message) bool { return string(m.Payload()) == "online" }) {
+		t.Fatal("daemon not online")
+	}
+	start := time.Now()
+	r := wait(t, startCmd(t, context.Background(), "replay", "--config", path, "--in", rec, "--to-broker", b.URL()), 20*time.Second)
+	if r.code != exitOK {
+		t.Fatalf("replay --to-broker: exit %d\n%s", r.code, r.err)
+	}
+	// At the recorded pace the last message goes out about 1.5 s after the first.
+	if el := time.Since(start); el < time.Second {
+		t.Errorf("1.5 s of recording sent in %v: not paced", el)
+	}
+	if !strings.HasPrefix(r.out, fmt.Sprintf("sent %d messages", len(msgs)-1)) || !strings.Contains(r.out, "1 on other topics skipped") {
+		t.Fatalf("replay --to-broker printed %q", r.out)
+	}
+	if !watch.await(3*time.Second, func(m paho.Message) bool {
+		return m.Topic() == cfg.Output.TracksTopic && strings.Contains(string(m.Payload()), `"status":"confirmed"`)
+	}) {
+		t.Error("the live daemon made no confirmed track from the re-published recording")
+	}
+	cancel()
+	if dr := wait(t, daemonRes, 10*time.Second); dr.code != exitOK {
+		t.Fatalf("run: exit %d\n%s", dr.code, dr.err)
+	}
+
+	// Every sensor message arrived once, in order, with one constant t_ns shift.
+	var got []paho.Message
+	watch.mu.Lock()
+	for _, m := range watch.msgs {
+		if strings.Contains(m.Topic(), "/sensors/") || strings.HasPrefix(m.Topic(), "elsewhere/") {
+			got = append(got, m)
+		}
+	}
+	watch.mu.Unlock()
+	if len(got) != len(msgs)-1 {
+		t.Fatalf("broker carried %d sensor messages, recording has %d", len(got), len(msgs)-1)
+	}
+	var shift int64
+	for i, m := range got {
+		var v struct {
+			TNs int64 `json:"t_ns"`
+		}
+		if err := json.Unmarshal(m.Payload(), &v); err != nil || m.Topic() != msgs[i].Topic {
+			t.Fatalf("message %d: %v on %s, want topic %s", i, err, m.Topic(), msgs[i].Topic)
+		}
+		if i == 0 {
+			shift = v.TNs - msgs[0].TNs
+		} else if v.TNs-msgs[i].TNs != shift {
+			t.Fatalf("message %d shifted by %d, the first by %d", i, v.TNs-msgs[i].TNs, shift)
+		}
+	}
+	// The shift makes the first message current (within a second of the send).
+	if now := time.Now().UnixNano(); msgs[0].TNs+shift > now || msgs[0].TNs+shift < start.UnixNano()-int64(time.Second) {
+		t.Errorf("retimed first t_ns %d is not near the send time %d", msgs[0].TNs+shift, start.UnixNano())
 	}
 }
