@@ -5,6 +5,7 @@ import (
 	"math"
 	"strconv"
 	"time"
+	"unsafe"
 
 	"github.com/valyala/fastjson"
 )
@@ -369,7 +370,7 @@ func (d *Decoder) detection(i int, dv *fastjson.Value, spec *SensorSpec, det *De
 		det.Class = d.intern(c)
 	}
 	if d.dscore != nil {
-		s, ok, msg := number(d.dscore)
+		s, ok, msg := d.number(d.dscore)
 		if !ok {
 			r := ReasonNonFinite
 			if d.dscore.Type() != fastjson.TypeNumber {
@@ -393,7 +394,7 @@ func (d *Decoder) vector(i int, field string, v *fastjson.Value, n int, out []fl
 			" values, the sensor needs "+strconv.Itoa(n))
 	}
 	for j, e := range a {
-		f, ok, msg := number(e)
+		f, ok, msg := d.number(e)
 		if !ok {
 			r := ReasonNonFinite
 			if e.Type() != fastjson.TypeNumber {
@@ -408,11 +409,16 @@ func (d *Decoder) vector(i int, field string, v *fastjson.Value, n int, out []fl
 
 // number returns a finite float64. The syntax check has already ruled out
 // NaN/Inf literals, so a non-finite result means the value overflowed.
-func number(v *fastjson.Value) (float64, bool, string) {
+// strconv.ParseFloat rounds correctly (as encoding/json does); fastjson's own
+// Float64 does not always (9.62964972193618e-35 comes back one ulp off), so
+// the number's text is parsed here.
+func (d *Decoder) number(v *fastjson.Value) (float64, bool, string) {
 	if v.Type() != fastjson.TypeNumber {
 		return 0, false, "is a " + v.Type().String() + ", not a number"
 	}
-	f, err := v.Float64()
+	d.num = v.MarshalTo(d.num[:0])
+	// The string aliases d.num only for the duration of the call.
+	f, err := strconv.ParseFloat(unsafe.String(unsafe.SliceData(d.num), len(d.num)), 64)
 	if err != nil || math.IsInf(f, 0) || math.IsNaN(f) {
 		return 0, false, "is beyond the float64 range"
 	}

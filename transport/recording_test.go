@@ -23,7 +23,7 @@ var recSample = []recIn{
 	{tArrival + 1, "shuttle-07/sensors/front_radar", 0, false, "{\n  \"v\": 1,\r\n  \"sensor\": \"gnss\"\n}"}, // pretty-printed
 	{tArrival + 2, "shuttle-07/status", 1, true, "online"},
 	{tArrival + 3, "shuttle-07/sensors/odd", 2, false, "\x00\xff binary"},
-	{tArrival + 4, "shuttle-07/sensors/front_radar", 1, false, `[1,2]`}, // JSON but not an object
+	{tArrival + 4, "shuttle-07/sensors/front_radar", 1, false, `[1,2]`},   // JSON but not an object
 	{tArrival + 5, "shuttle-07/sensors/front_radar", 1, false, `{"v":1,`}, // broken JSON
 	{tArrival + 6, "shuttle-07/sensors/\"quoted\"", 1, false, ""},
 }
