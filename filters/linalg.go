@@ -52,19 +52,25 @@ func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 		return fmt.Errorf("%w: Triangularize %d×%d", ErrDimension, n, k)
 	}
 	if k <= smallLQ {
-		householderLQ(A, n, k)
+		householderLQ(A, n, k, w.tol)
 	} else {
 		if !finite(A[:n*k]) {
 			return fmt.Errorf("%w: pre-array", ErrNonFinite)
 		}
 		lapack64.Gelqf(blas64.General{Rows: n, Cols: k, Stride: k, Data: A[:n*k]}, w.tau[:n], w.work, len(w.work))
 	}
-	// Orthogonal transformations from the right keep each row's norm, so
-	// row i of L has the norm of row i of A. L_ii is the part of that row
-	// orthogonal to the rows above; below k·ε·‖row‖ it is rounding noise and
-	// A·Aᵀ is numerically singular. The 1-norm (≥ the 2-norm) makes the test
-	// a little stricter and needs no square root.
-	sgn := w.tau[:n]
+	return finishLower(L, A, n, k, w.tau[:n])
+}
+
+// finishLower checks the triangularised n×k array A and copies its lower
+// triangle into L (n×n) with a positive diagonal. sgn is scratch (n).
+//
+// Orthogonal transformations from the right keep each row's norm, so row i
+// of L has the norm of row i of A. L_ii is the part of that row orthogonal
+// to the rows above; below k·ε·‖row‖ it is rounding noise and A·Aᵀ is
+// numerically singular. The 1-norm (≥ the 2-norm) makes the test a little
+// stricter and needs no square root.
+func finishLower(L, A []float64, n, k int, sgn []float64) error {
 	tol := float64(k) * 0x1p-52
 	for i := 0; i < n; i++ {
 		row := A[i*k : i*k+i+1]
@@ -82,7 +88,7 @@ func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 		sgn[i] = math.Copysign(1, d)
 	}
 	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal is made
-	// positive column by column (w.tau is free again and holds the signs).
+	// positive column by column.
 	for i := 0; i < n; i++ {
 		row := L[i*n : i*n+n]
 		src := A[i*k : i*k+i+1]
@@ -94,6 +100,83 @@ func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 		}
 	}
 	return nil
+}
+
+// triangularizeUpdate is Triangularize for the measurement-update pre-array
+// of the square-root Kalman filter,
+//
+//	A = [ Rs  H·S ]   (m rows)      →   [ Sy  0  ]
+//	    [ 0    S  ]   (n rows)          [ K̄   S⁺ ],
+//
+// with Rs and S lower triangular, N = m+n. Givens rotations of column i
+// (i < m) against columns m+n−1, …, m zero row i of H·S; taken in that
+// order they never fill the strictly upper part of the S block, so S⁺
+// comes out triangular with no second pass: m·n rotations instead of N
+// Householder reflections over the full array (measured with
+// BenchmarkUpdateArray). For each row the rotation pairs (c, s) follow from
+// running sums of squares, so their square roots and divisions are
+// independent of one another. A is overwritten; sgn is scratch (N).
+func triangularizeUpdate(L, A []float64, m, n int, sgn []float64) error {
+	N := m + n
+	if len(A) < N*N || len(L) < N*N || len(sgn) < N {
+		return fmt.Errorf("%w: update array m=%d n=%d", ErrDimension, m, n)
+	}
+	if !finite(A[:N*N]) {
+		return fmt.Errorf("%w: update pre-array", ErrNonFinite)
+	}
+	// sgn doubles as storage for the n rotation pairs' c values; s values
+	// go into the zeroed entries of row i as they are produced.
+	for i := 0; i < m; i++ {
+		ri := A[i*N : i*N+N]
+		a := ri[i]
+		// r after rotating in columns m+n−1 … m+l: running sums of squares.
+		rPrev := math.Abs(a)
+		t2 := a * a
+		cs := sgn[:n]
+		for l := n - 1; l >= 0; l-- {
+			b := ri[m+l]
+			t2 += b * b
+			if t2 == 0 {
+				cs[l] = 1 // nothing to rotate yet; s = b = 0 stays in place
+				continue
+			}
+			r := math.Sqrt(t2)
+			cs[l] = rPrev / r
+			ri[m+l] = b / r // s, stored in the entry being zeroed
+			rPrev = r
+		}
+		if !(rPrev > 0) {
+			return fmt.Errorf("%w: update pre-array row %d is zero", ErrNotPosDef, i)
+		}
+		if a < 0 {
+			// Rs has a positive diagonal; keep the rotation convention
+			// simple by flipping column i first.
+			for r := i; r < N; r++ {
+				A[r*N+i] = -A[r*N+i]
+			}
+		}
+		ri[i] = rPrev
+		for l := n - 1; l >= 0; l-- {
+			c, s := cs[l], ri[m+l]
+			ri[m+l] = 0
+			if s == 0 {
+				continue
+			}
+			// Rows below i in the Rs block, then the S block from row m+l:
+			// column i is still zero in S-block rows above m+l.
+			for r := i + 1; r < m; r++ {
+				u, v := A[r*N+i], A[r*N+m+l]
+				A[r*N+i] = c*u + s*v
+				A[r*N+m+l] = c*v - s*u
+			}
+			for r := m + l; r < N; r++ {
+				u, v := A[r*N+i], A[r*N+m+l]
+				A[r*N+i] = c*u + s*v
+				A[r*N+m+l] = c*v - s*u
+			}
+		}
+	}
+	return finishLower(L, A, N, N, sgn)
 }
 
 // mulLower writes A·S into dst (row stride ds) for the r×n matrix A and the
@@ -125,8 +208,10 @@ const smallLQ = 32
 // householderLQ overwrites the lower triangle of the n×k row-major A (k ≥ n)
 // with L of the LQ factorisation A = L·Q, using Householder reflections from
 // the right (Golub & Van Loan, Matrix Computations, §5.1–5.2, transposed).
-// Entries above the diagonal are left holding reflector data.
-func householderLQ(A []float64, n, k int) {
+// Entries above the diagonal are left holding reflector data. d is scratch
+// of length ≥ n.
+func householderLQ(A []float64, n, k int, d []float64) {
+	d = d[:n]
 	for i := 0; i < n; i++ {
 		ri := A[i*k+i : i*k+k]
 		nrm := rowNorm(ri)
@@ -160,12 +245,29 @@ func householderLQ(A []float64, n, k int) {
 				}
 			}
 		}
+		// All the dot products first, then all the updates: the dots are
+		// independent, so their latency chains overlap (LAPACK's dlarf does
+		// the same with dgemv then dger).
 		for r := i + 1; r < n; r++ {
 			rr := A[r*k+i : r*k+k]
-			d := tau * dot(rr, ri)
 			rr = rr[:len(ri)]
+			var d0, d1 float64
+			j := 0
+			for ; j+2 <= len(ri); j += 2 {
+				d0 += rr[j] * ri[j]
+				d1 += rr[j+1] * ri[j+1]
+			}
+			if j < len(ri) {
+				d0 += rr[j] * ri[j]
+			}
+			d[r] = tau * (d0 + d1)
+		}
+		for r := i + 1; r < n; r++ {
+			rr := A[r*k+i : r*k+k]
+			rr = rr[:len(ri)]
+			dr := d[r]
 			for j, uj := range ri {
-				rr[j] -= d * uj
+				rr[j] -= dr * uj
 			}
 		}
 		ri[0] = alpha
@@ -268,13 +370,19 @@ func CheckSqrt(S []float64, n int) error {
 }
 
 // finite reports whether every entry is finite: x·0 is 0 for finite x and
-// NaN for ±Inf and NaN, so one branch-free pass suffices.
+// NaN for ±Inf and NaN, so one branch-free pass suffices (two accumulators
+// halve the add latency chain).
 func finite(v []float64) bool {
-	var s float64
-	for _, x := range v {
-		s += x * 0
+	var s0, s1 float64
+	j := 0
+	for ; j+2 <= len(v); j += 2 {
+		s0 += v[j] * 0
+		s1 += v[j+1] * 0
 	}
-	return s == 0
+	for ; j < len(v); j++ {
+		s0 += v[j] * 0
+	}
+	return s0+s1 == 0
 }
 
 // CholUpdate overwrites the lower-triangular L (n×n, positive diagonal) with
@@ -344,23 +452,43 @@ func CholDowndate(L []float64, n int, x []float64, w *DowndateWork) error {
 // cholDowndate is CholDowndate without the backup; on false L may be
 // modified only when the final diagonal check fails.
 func cholDowndate(L []float64, n int, x, c, s []float64) bool {
-	// a = L⁻¹ x (forward substitution; x becomes a).
+	// a = L⁻¹ x (forward substitution; x becomes a). The reciprocal
+	// diagonal is formed first (independent divisions) so that the
+	// substitution chain carries only multiplies and adds.
 	for j := 0; j < n; j++ {
-		x[j] = (x[j] - dot(x[:j], L[j*n:])) / L[j*n+j]
+		c[j] = 1 / L[j*n+j]
 	}
-	nrm2 := dot(x[:n], x)
+	for j := 0; j < n; j++ {
+		v := x[j]
+		row := L[j*n : j*n+j]
+		for i, l := range row {
+			v -= l * x[i]
+		}
+		x[j] = v * c[j]
+	}
+	var nrm2 float64
+	for _, v := range x[:n] {
+		nrm2 += v * v
+	}
 	if !(nrm2 < 1) {
 		return false
 	}
-	// dchdd scales each pair by alpha + |a_i| against overflow; here
-	// alpha ≥ √(1−‖a‖²) > 1e-8 and |a_i| < 1, so the plain form is safe.
-	alpha := math.Sqrt(1 - nrm2)
+	// dchdd's rotations: walking i = n−1..0, α_before = √(1 − Σ_{j≤i} a_j²),
+	// α_after = √(α_before² + a_i²), c_i = α_before/α_after,
+	// s_i = a_i/α_after. The squares are accumulated first (a cheap add
+	// chain) so the square roots and divisions are independent. dchdd also
+	// scales each pair against overflow; here α ≥ √(1−‖a‖²) > 1e-8 and
+	// |a_i| < 1, so the plain form is safe.
+	t := 1 - nrm2
 	for i := n - 1; i >= 0; i-- {
-		r := math.Sqrt(alpha*alpha + x[i]*x[i])
-		inv := 1 / r
-		c[i] = alpha * inv
+		s[i] = t
+		t += x[i] * x[i]
+		c[i] = t
+	}
+	for i := 0; i < n; i++ {
+		inv := 1 / math.Sqrt(c[i])
+		c[i] = math.Sqrt(s[i]) * inv
 		s[i] = x[i] * inv
-		alpha = r
 	}
 	// In dchdd's upper-triangular R, r(i,j) = L[j,i] here.
 	for j := 0; j < n; j++ {

@@ -81,3 +81,117 @@ func BenchmarkTriangularize(b *testing.B) {
 func dims(n, k int) string {
 	return string(rune('0'+n)) + "x" + string(rune('0'+k/10)) + string(rune('0'+k%10))
 }
+
+func BenchmarkRankOne(b *testing.B) {
+	rng := rand.New(rand.NewPCG(45, 46))
+	n := 5
+	L := make([]float64, n*n)
+	for i := 0; i < n; i++ {
+		for j := 0; j < i; j++ {
+			L[i*n+j] = 0.3 * rng.NormFloat64()
+		}
+		L[i*n+i] = 1 + rng.Float64()
+	}
+	x := make([]float64, n)
+	for i := range x {
+		x[i] = 0.1 * rng.NormFloat64()
+	}
+	work := make([]float64, n*n)
+	v := make([]float64, n)
+	c := make([]float64, n)
+	s := make([]float64, n)
+	b.Run("update5", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			copy(work, L)
+			copy(v, x)
+			cholUpdate(work, n, v)
+		}
+	})
+	b.Run("downdate5", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			copy(work, L)
+			copy(v, x)
+			if !cholDowndate(work, n, v, c, s) {
+				b.Fatal("downdate failed")
+			}
+		}
+	})
+}
+
+// TestTriangularizeUpdateMatchesLQ: the structured Givens update gives the
+// same factor as the general Householder LQ of the same pre-array (the
+// lower-triangular factor with positive diagonal of A·Aᵀ is unique).
+func TestTriangularizeUpdateMatchesLQ(t *testing.T) {
+	rng := rand.New(rand.NewPCG(47, 48))
+	for _, mn := range [][2]int{{1, 1}, {1, 4}, {2, 4}, {3, 5}, {3, 6}, {2, 2}} {
+		m, n := mn[0], mn[1]
+		N := m + n
+		A := make([]float64, N*N)
+		for i := 0; i < m; i++ {
+			for j := 0; j < i; j++ {
+				A[i*N+j] = 0.3 * rng.NormFloat64()
+			}
+			A[i*N+i] = 0.1 + rng.Float64()
+			for j := m; j < N; j++ {
+				A[i*N+j] = rng.NormFloat64()
+			}
+		}
+		for i := 0; i < n; i++ {
+			for j := 0; j < i; j++ {
+				A[(m+i)*N+m+j] = 0.5 * rng.NormFloat64()
+			}
+			A[(m+i)*N+m+i] = 0.2 + rng.Float64()
+		}
+		want := make([]float64, N*N)
+		if err := Triangularize(want, slices.Clone(A), N, N, NewTriaWork(N, N)); err != nil {
+			t.Fatal(err)
+		}
+		got := make([]float64, N*N)
+		if err := triangularizeUpdate(got, slices.Clone(A), m, n, make([]float64, N)); err != nil {
+			t.Fatal(err)
+		}
+		for i := range got {
+			if math.Abs(got[i]-want[i]) > 1e-13 {
+				t.Fatalf("m=%d n=%d: L[%d,%d] = %g, Householder %g", m, n, i/N, i%N, got[i], want[i])
+			}
+		}
+	}
+}
+
+func BenchmarkUpdateArray(b *testing.B) {
+	m, n := 2, 4
+	N := m + n
+	rng := rand.New(rand.NewPCG(49, 50))
+	A := make([]float64, N*N)
+	for i := 0; i < m; i++ {
+		A[i*N+i] = 0.5
+		for j := m; j < N; j++ {
+			A[i*N+j] = rng.NormFloat64()
+		}
+	}
+	for i := 0; i < n; i++ {
+		for j := 0; j <= i; j++ {
+			A[(m+i)*N+m+j] = 0.5 + rng.Float64()
+		}
+	}
+	work := make([]float64, N*N)
+	L := make([]float64, N*N)
+	sgn := make([]float64, N)
+	w := NewTriaWork(N, N)
+	b.Run("givens", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			copy(work, A)
+			if err := triangularizeUpdate(L, work, m, n, sgn); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+	b.Run("householder", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			copy(work, A)
+			if err := Triangularize(L, work, N, N, w); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+}

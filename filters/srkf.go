@@ -11,7 +11,8 @@ import (
 // filter. It keeps x and lower-triangular S (P = S·Sᵀ), never P.
 //
 // Predict triangularises the pre-array [F·S | G] (Q = G·Gᵀ) into S⁻.
-// Prepare triangularises the combined update pre-array
+// Prepare triangularises (with Givens rotations that keep the structure,
+// see triangularizeUpdate) the combined update pre-array
 //
 //	[ Rs  H·S ]        [ Sy  0  ]
 //	[ 0    S  ]  ·Θ  = [ K̄   S⁺ ]
@@ -30,7 +31,7 @@ type SREKF struct {
 
 	// Update workspace, sized for mCap.
 	H, preU, postU, Spost []float64
-	triU                  *TriaWork
+	sgn                   []float64
 }
 
 // NewSREKF returns a square-root EKF for the motion model f. Call Init
@@ -69,7 +70,7 @@ func (k *SREKF) growMeas(m int) {
 	k.preU = make([]float64, N*N)
 	k.postU = make([]float64, N*N)
 	k.Spost = make([]float64, n*n)
-	k.triU = NewTriaWork(N, N)
+	k.sgn = make([]float64, N)
 }
 
 // Predict moves the state forward by dt ≥ 0 seconds.
@@ -130,7 +131,7 @@ func (k *SREKF) Prepare(h MeasurementModel, Rs []float64) error {
 		copy(pre[(m+i)*N+m:(m+i)*N+N], k.S[i*n:i*n+n])
 	}
 	post := k.postU[:N*N]
-	if err := Triangularize(post, pre, N, N, k.triU); err != nil {
+	if err := triangularizeUpdate(post, pre, m, n, k.sgn[:N]); err != nil {
 		return fmt.Errorf("update: %w", err)
 	}
 	for i := 0; i < m; i++ {
