@@ -43,6 +43,7 @@ type frame struct {
 	plat  Platform
 	cov   Coverage
 
+	lx, ly   float64 // lever arm of the mount in site axes
 	sx, sy   float64 // sensor position, site frame
 	sin, cos float64 // of the sensor yaw in the site frame
 	svx, svy float64 // sensor velocity, site frame
@@ -62,6 +63,7 @@ func (f *frame) update() {
 	// Lever arm of the sensor in site axes.
 	lx := cp*f.mount.X - sp*f.mount.Y
 	ly := sp*f.mount.X + cp*f.mount.Y
+	f.lx, f.ly = lx, ly
 	f.sx, f.sy = f.plat.X+lx, f.plat.Y+ly
 	f.sin, f.cos = math.Sincos(f.plat.Yaw + f.mount.Yaw)
 	// Rigid body: v_sensor = v_platform + ω × lever arm.

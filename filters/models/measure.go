@@ -32,6 +32,10 @@ type TargetSensor interface {
 	// NoiseSqrt writes the configured measurement noise square root (m×m
 	// lower triangular) for a target with state x.
 	NoiseSqrt(Rs, x []float64) error
+	// PlatformJacobian writes ∂h/∂(platform x, y, yaw) at target state x
+	// (m×3), for carrying the ego pose uncertainty into the measurement
+	// noise: R + Hp·P_pose·Hpᵀ.
+	PlatformJacobian(Hp, x []float64)
 }
 
 // positioner is an optional fast path for models whose position is cheaper
@@ -122,6 +126,18 @@ func (t *target) relPos(x []float64) (dx, dy, r float64) {
 	return dx, dy, math.Sqrt(dx*dx + dy*dy)
 }
 
+// poseDerivs returns the derivatives of the offset d = p − s with respect
+// to the platform yaw ψ, ∂d/∂ψ = (l_y, −l_x), and of the sensor-frame
+// position (x_s, y_s) = Rφᵀ·d with respect to ψ (the sensor yaw φ turns with
+// ψ): ∂(x_s, y_s)/∂ψ = (y_s, −x_s) + Rφᵀ·∂d/∂ψ. ∂d/∂(X, Y) = −I.
+func (t *target) poseDerivs(dx, dy float64) (ddx, ddy, dxs, dys float64) {
+	ddx, ddy = t.ly, -t.lx
+	xs, ys := t.cos*dx+t.sin*dy, -t.sin*dx+t.cos*dy
+	dxs = ys + t.cos*ddx + t.sin*ddy
+	dys = -xs - t.sin*ddx + t.cos*ddy
+	return ddx, ddy, dxs, dys
+}
+
 func (t *target) checkBirth(pos, cov, z, Rs []float64) error {
 	if len(pos) < 2 || len(cov) < 4 {
 		return fmt.Errorf("%w: birth needs pos[2] and cov[4]", ErrParam)
@@ -184,6 +200,14 @@ func (p *PositionXY) Jacobian(H, x []float64) {
 	chain(H, D, 2, p.J, p.n)
 }
 
+// PlatformJacobian writes ∂z/∂(X, Y, ψ) of the platform pose (2×3).
+func (p *PositionXY) PlatformJacobian(Hp, x []float64) {
+	dx, dy, _ := p.relPos(x)
+	_, _, dxs, dys := p.poseDerivs(dx, dy)
+	Hp[0], Hp[1], Hp[2] = -p.cos, -p.sin, dxs
+	Hp[3], Hp[4], Hp[5] = p.sin, -p.cos, dys
+}
+
 // Residual is a − b.
 func (*PositionXY) Residual(dst, a, b []float64) {
 	dst[0] = a[0] - b[0]
@@ -238,6 +262,28 @@ func (p *RangeBearing) Jacobian(H, x []float64) {
 		D[4], D[5] = -dy/r2, dx/r2
 	}
 	chain(H, D, 2, p.J, p.n)
+}
+
+// PlatformJacobian writes ∂[r, b]/∂(X, Y, ψ) of the platform pose (2×3);
+// zero when the target sits on the sensor.
+func (p *RangeBearing) PlatformJacobian(Hp, x []float64) {
+	dx, dy, r := p.relPos(x)
+	rangeBearingPose(Hp, &p.target, dx, dy, r)
+}
+
+// rangeBearingPose writes the range and bearing rows of the platform-pose
+// Jacobian: ∂r/∂d = d̂, ∂b/∂d = (−d_y, d_x)/r², and the bearing also loses
+// the sensor's own turn, ∂b/∂φ = −1.
+func rangeBearingPose(Hp []float64, t *target, dx, dy, r float64) {
+	zero(Hp[:6])
+	if !(r > minRange) {
+		return
+	}
+	ddx, ddy, _, _ := t.poseDerivs(dx, dy)
+	ex, ey := dx/r, dy/r
+	bx, by := -dy/(r*r), dx/(r*r)
+	Hp[0], Hp[1], Hp[2] = -ex, -ey, ex*ddx+ey*ddy
+	Hp[3], Hp[4], Hp[5] = -bx, -by, bx*ddx+by*ddy-1
 }
 
 // Residual is a − b with the bearing wrapped.
@@ -309,6 +355,26 @@ func (p *RangeBearingRate) Jacobian(H, x []float64) {
 		D[10], D[11] = ex, ey
 	}
 	chain(H, D, 3, p.J, p.n)
+}
+
+// PlatformJacobian writes ∂[r, b, ṙ]/∂(X, Y, ψ) of the platform pose
+// (3×3). The platform velocity and yaw rate are held fixed; turning the
+// platform swings the lever arm, so the sensor velocity changes with ψ:
+// ∂v_s/∂ψ = −ω·(l_x, l_y).
+func (p *RangeBearingRate) PlatformJacobian(Hp, x []float64) {
+	dx, dy, r, ux, uy := p.rel(x, false)
+	rangeBearingPose(Hp, &p.target, dx, dy, r)
+	Hp[6], Hp[7], Hp[8] = 0, 0, 0
+	if !(r > minRange) {
+		return
+	}
+	ddx, ddy, _, _ := p.poseDerivs(dx, dy)
+	ex, ey := dx/r, dy/r
+	rr := ex*ux + ey*uy
+	gx, gy := (ux-rr*ex)/r, (uy-rr*ey)/r // ∂ṙ/∂d
+	w := p.plat.YawRate
+	Hp[6], Hp[7] = -gx, -gy
+	Hp[8] = gx*ddx + gy*ddy + ex*w*p.lx + ey*w*p.ly
 }
 
 // Residual is a − b with the bearing wrapped.
@@ -400,6 +466,29 @@ func (p *Pinhole) Jacobian(H, x []float64) {
 		D[4], D[5] = dx/r, dy/r
 	}
 	chain(H, D, 2, p.J, p.n)
+}
+
+// PlatformJacobian writes ∂[u, r]/∂(X, Y, ψ) of the platform pose (2×3).
+func (p *Pinhole) PlatformJacobian(Hp, x []float64) {
+	dx, dy, r := p.relPos(x)
+	xsRaw := p.cos*dx + p.sin*dy
+	xs := math.Max(xsRaw, minDepth)
+	ys := -p.sin*dx + p.cos*dy
+	ddx, ddy, dxs, dys := p.poseDerivs(dx, dy)
+	duxs := 0.0
+	if xsRaw > minDepth {
+		duxs = p.fx * ys / (xs * xs)
+	}
+	duys := -p.fx / xs
+	// ∂(x_s, y_s)/∂(X, Y) = −Rφᵀ.
+	Hp[0] = -(duxs*p.cos - duys*p.sin)
+	Hp[1] = -(duxs*p.sin + duys*p.cos)
+	Hp[2] = duxs*dxs + duys*dys
+	Hp[3], Hp[4], Hp[5] = 0, 0, 0
+	if r > minRange {
+		ex, ey := dx/r, dy/r
+		Hp[3], Hp[4], Hp[5] = -ex, -ey, ex*ddx+ey*ddy
+	}
 }
 
 // Residual is a − b (pixels and metres, no wrapping).

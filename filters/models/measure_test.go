@@ -556,3 +556,56 @@ func BenchmarkRangeBearingRatePredictJacobian(b *testing.B) {
 		h.Jacobian(H, x)
 	}
 }
+
+// PlatformJacobian against central finite differences in the platform pose
+// (x, y, yaw), with a moving, turning platform and an offset mount.
+func TestPlatformJacobians(t *testing.T) {
+	ctrv := mustCTRV(t, 1, 1)
+	rapid.Check(t, func(rt *rapid.T) {
+		mount := Mount{X: rapid.Float64Range(-3, 5).Draw(rt, "mx"), Y: rapid.Float64Range(-2, 2).Draw(rt, "my"),
+			Yaw: rapid.Float64Range(-math.Pi, math.Pi).Draw(rt, "myaw")}
+		plat := Platform{X: rapid.Float64Range(-50, 50).Draw(rt, "px"), Y: rapid.Float64Range(-50, 50).Draw(rt, "py"),
+			Yaw: rapid.Float64Range(-math.Pi, math.Pi).Draw(rt, "pyaw"),
+			VX:  rapid.Float64Range(-10, 10).Draw(rt, "vx"), VY: rapid.Float64Range(-10, 10).Draw(rt, "vy"),
+			YawRate: rapid.Float64Range(-1, 1).Draw(rt, "w")}
+		for _, h := range newTargetModels(rt, ctrv, mount) {
+			ts := h.(TargetSensor)
+			_ = h.SetPlatform(plat)
+			f := h.(interface {
+				ToSite(xs, ys float64) (float64, float64)
+			})
+			rng := rapid.Float64Range(5, 80).Draw(rt, "range")
+			brg := rapid.Float64Range(-1.2, 1.2).Draw(rt, "bearing")
+			x := []float64{0, 0, rapid.Float64Range(-10, 10).Draw(rt, "v"), rapid.Float64Range(-3, 3).Draw(rt, "yaw"), 0.2}
+			x[0], x[1] = f.ToSite(rng*math.Cos(brg), rng*math.Sin(brg))
+			m := h.Dim()
+			got := make([]float64, m*3)
+			ts.PlatformJacobian(got, x)
+			zp, zm, d := make([]float64, m), make([]float64, m), make([]float64, m)
+			for j := 0; j < 3; j++ {
+				const step = 1e-6
+				pp, pm := plat, plat
+				switch j {
+				case 0:
+					pp.X, pm.X = plat.X+step, plat.X-step
+				case 1:
+					pp.Y, pm.Y = plat.Y+step, plat.Y-step
+				case 2:
+					pp.Yaw, pm.Yaw = plat.Yaw+step, plat.Yaw-step
+				}
+				_ = h.SetPlatform(pp)
+				h.Predict(zp, x)
+				_ = h.SetPlatform(pm)
+				h.Predict(zm, x)
+				h.Residual(d, zp, zm)
+				for i := 0; i < m; i++ {
+					want := d[i] / (2 * step)
+					if diff := math.Abs(got[i*3+j] - want); diff > 1e-5*math.Max(1, math.Abs(want)) {
+						rt.Fatalf("%T: ∂z[%d]/∂pose[%d] = %v, finite difference %v", h, i, j, got[i*3+j], want)
+					}
+				}
+			}
+			_ = h.SetPlatform(plat)
+		}
+	})
+}
