@@ -297,10 +297,7 @@ func (d *decoder) targets(n *yaml.Node, sc *Scenario) {
 	if !ok {
 		return
 	}
-	seen := map[string]string{}
-	for _, id := range sc.Targets {
-		seen[id.ID] = "crowd"
-	}
+	seen := map[string]string{} // id -> where it was first used
 	for i, it := range items {
 		path := fmt.Sprintf("targets[%d]", i)
 		m := d.mapping(it, path, targetKeys)
