@@ -64,7 +64,9 @@ type Options struct {
 	// BirthSpeedSD is the s.d. of each velocity component (CTRV: of the
 	// speed) of a new track, m/s; 0 means 5 m/s.
 	BirthSpeedSD float64
-	// MaxScans bounds the lag-window log (memory); 0 means 4096 scans.
+	// MaxScans bounds the lag-window log (memory): past it the oldest scans
+	// leave the window early. 0 means twice what the sensor periods put in
+	// timing.lag_ms, plus 16, at most 4096.
 	MaxScans int
 	// Particles per track for tracker.filter pf; 0 means 500.
 	Particles int
@@ -93,6 +95,9 @@ type sensorRT struct {
 	lastArrival                                       int64
 	haveArrival                                       bool
 	meanGapNs                                         float64
+
+	lateSinceNs int64 // arrival time of the first late drop
+	lostSinceNs int64 // arrival time of the first sequence gap
 
 	offsetNs        float64 // estimated clock offset (arrival − t_ns lower envelope)
 	haveOffset      bool
@@ -213,7 +218,18 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		return nil, fmt.Errorf("engine: output.rate_hz %v: need ≥ 0", r)
 	}
 	if e.maxScans <= 0 {
-		e.maxScans = 4096
+		// Twice the scans the configured periods put in the lag window, so
+		// memory stays bounded when a sensor floods; a sensor without a
+		// period counts as 50 Hz.
+		var perWindow float64
+		for _, sc := range cfg.Sensors {
+			p := sc.PeriodMS
+			if !(p > 0) {
+				p = 20
+			}
+			perWindow += cfg.Timing.LagMS / p
+		}
+		e.maxScans = int(math.Min(2*perWindow+16, 4096))
 	}
 	if e.birthSpeedSD <= 0 {
 		e.birthSpeedSD = 5
@@ -450,6 +466,9 @@ func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
 
 	if (e.haveNewest && t < e.newestNs-e.lagNs) || (e.haveHorizon && !e.horizon.before(sc)) {
 		e.free = append(e.free, sc)
+		if s.lateDropped == 0 {
+			s.lateSinceNs = arrivalNs
+		}
 		s.lateDropped++
 		e.counters.LateDropped++
 		return ErrLate
@@ -579,6 +598,9 @@ func (e *Engine) noteArrival(s *sensorRT, m *transport.Measurement, arrivalNs in
 	if s.haveSeq {
 		switch {
 		case m.Seq > s.lastSeq+1:
+			if s.lost == 0 {
+				s.lostSinceNs = arrivalNs
+			}
 			s.lost += m.Seq - s.lastSeq - 1
 		case m.Seq < s.lastSeq && s.lost > 0:
 			s.lost-- // counted as lost, then arrived after all

@@ -189,3 +189,49 @@ func TestOutOfSequenceMovingPlatform(t *testing.T) {
 		}
 	})
 }
+
+// TestRewindReprocessesWhatFollows: a message displaced behind k newer
+// scans restores one snapshot and processes exactly those k scans again
+// (the reprocessing solution of DESIGN.md: cost linear in k).
+func TestRewindReprocessesWhatFollows(t *testing.T) {
+	for _, k := range []int{1, 2, 5, 9} {
+		e := mustNew(t, baseConfig(xySensor("mast_lidar", 0, 0, 0, 0.2), xySensor("mast_lidar_2", 0, 0, 0, 0.2)))
+		for i := 0; i < 10; i++ {
+			tn := t0 + int64(i)*2e7
+			e.Ingest(xyMsg(0, uint64(i+1), tn, [2]float64{10, 5}), tn)
+		}
+		lateT := t0 + int64(9-k)*2e7 + 1e7 // between scans 9−k and 10−k
+		before := e.Counters()
+		if err := e.Ingest(xyMsg(1, 1, lateT, [2]float64{10, 5}), t0+2e8); err != nil {
+			t.Fatal(err)
+		}
+		after := e.Counters()
+		if after.Rewinds-before.Rewinds != 1 || after.Reprocessed-before.Reprocessed != uint64(k) {
+			t.Errorf("k = %d: %d rewinds, %d scans reprocessed", k, after.Rewinds-before.Rewinds, after.Reprocessed-before.Reprocessed)
+		}
+	}
+}
+
+// TestMaxScansBoundsTheWindow: when more scans than MaxScans fall in the
+// lag window, the oldest leave it early, and a message older than the
+// oldest kept scan is dropped as late rather than rewinding past it.
+func TestMaxScansBoundsTheWindow(t *testing.T) {
+	cfg := baseConfig(xySensor("mast_lidar", 0, 0, 0, 0.2), xySensor("mast_lidar_2", 0, 0, 0, 0.2))
+	e, err := New(cfg, Options{MaxScans: 8})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < 20; i++ { // 1 ms apart: all inside the 300 ms window
+		tn := t0 + int64(i)*1e6
+		e.Ingest(xyMsg(0, uint64(i+1), tn, [2]float64{10, 5}), tn)
+	}
+	if len(e.log) != 8 {
+		t.Fatalf("log holds %d scans, MaxScans 8", len(e.log))
+	}
+	if err := e.Ingest(xyMsg(1, 1, t0+5e5, [2]float64{10, 5}), t0+2e7); !errors.Is(err, ErrLate) {
+		t.Fatalf("message before the kept scans: %v, want ErrLate", err)
+	}
+	if err := e.Ingest(xyMsg(1, 2, t0+15e6+5e5, [2]float64{10, 5}), t0+2e7); err != nil {
+		t.Fatalf("message inside the kept scans: %v", err)
+	}
+}

@@ -221,11 +221,11 @@ func (e *Engine) Health(tNs int64, out *transport.HealthMsg) {
 		out.Sensors = append(out.Sensors, h)
 		if s.lateDropped > 0 {
 			out.Alerts = append(out.Alerts, transport.Alert{Code: "late_dropped", Severity: "warning", Sensor: s.name,
-				Detail: "measurements older than the lag window were dropped"})
+				SinceNs: s.lateSinceNs, Detail: "measurements older than the lag window were dropped"})
 		}
 		if s.lost > 0 {
 			out.Alerts = append(out.Alerts, transport.Alert{Code: "messages_lost", Severity: "warning", Sensor: s.name,
-				Detail: "sequence numbers are missing"})
+				SinceNs: s.lostSinceNs, Detail: "sequence numbers are missing"})
 		}
 	}
 	out.Counters.Rejected = append(out.Counters.Rejected[:0], e.rejectReason...)
