@@ -120,11 +120,18 @@ func (v *innovation) whiten(z []float64) float64 {
 	if !finite(e) {
 		return math.Inf(1)
 	}
-	copy(a, e)
-	SolveLower(v.Sy[:m*m], m, a)
+	// Forward substitution Sy·a = e by hand: m ≤ 6 and blas64.Trsv's
+	// dispatch costs more than the arithmetic here.
 	var nis float64
-	for _, ai := range a {
-		nis += ai * ai
+	Sy := v.Sy[:m*m]
+	for j := 0; j < m; j++ {
+		s := e[j]
+		row := Sy[j*m : j*m+j]
+		for i, l := range row {
+			s -= l * a[i]
+		}
+		a[j] = s / Sy[j*m+j]
+		nis += a[j] * a[j]
 	}
 	if math.IsNaN(nis) || math.IsInf(nis, 0) {
 		return math.Inf(1)

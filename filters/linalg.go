@@ -25,13 +25,13 @@ var (
 type TriaWork struct {
 	n, k int
 	tau  []float64
-	tol  []float64
+	dots []float64
 	work []float64
 }
 
 // NewTriaWork returns a workspace for n×k pre-arrays (k ≥ n).
 func NewTriaWork(n, k int) *TriaWork {
-	w := &TriaWork{n: n, k: k, tau: make([]float64, n), tol: make([]float64, n)}
+	w := &TriaWork{n: n, k: k, tau: make([]float64, n), dots: make([]float64, n)}
 	// Ask LAPACK for its preferred length once; small arrays use the
 	// unblocked path, which needs only n.
 	q := make([]float64, 1)
@@ -52,7 +52,7 @@ func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 		return fmt.Errorf("%w: Triangularize %d×%d", ErrDimension, n, k)
 	}
 	if k <= smallLQ {
-		householderLQ(A, n, k, w.tol)
+		householderLQ(A, n, k, w.dots)
 	} else {
 		if !finite(A[:n*k]) {
 			return fmt.Errorf("%w: pre-array", ErrNonFinite)

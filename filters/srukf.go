@@ -69,7 +69,8 @@ type SRUKF struct {
 	X, Y    []float64 // (2n+1)×n sigma points, one per row
 	d, v    []float64 // n
 	xp, G   []float64
-	pre, Sp []float64 // n×3n pre-array, n×n
+	pre, Sp []float64 // n×(2n + non-zero noise columns) pre-array, n×n
+	gcol    []bool    // which columns of G are non-zero
 	triP    *TriaWork
 	c, s    []float64 // downdate rotations, n
 
@@ -104,6 +105,7 @@ func NewSRUKF(f MotionModel, p UTParams) (*SRUKF, error) {
 		G:     make([]float64, n*n),
 		pre:   make([]float64, n*3*n),
 		Sp:    make([]float64, n*n),
+		gcol:  make([]bool, n),
 		triP:  NewTriaWork(n, 3*n),
 		c:     make([]float64, n),
 		s:     make([]float64, n),
@@ -203,15 +205,33 @@ func (u *SRUKF) Predict(dt float64) error {
 	}
 	u.f.Normalize(u.xp)
 	sw := math.Sqrt(u.w.wi)
-	k := 3 * n
+	k := 2 * n
+	for j := 0; j < n; j++ {
+		u.gcol[j] = false
+		for r := 0; r < n; r++ {
+			if u.G[r*n+j] != 0 {
+				u.gcol[j] = true
+				k++
+				break
+			}
+		}
+	}
 	for i := 1; i < np; i++ {
 		yi := u.Y[i*n : (i+1)*n]
 		for r, v := range yi {
 			u.pre[r*k+i-1] = sw * (v - mb[r])
 		}
 	}
+	// Noise columns: all-zero columns of G (a singular Q, as CTRV's) add
+	// nothing to the factor and are left out of the pre-array.
 	for r := 0; r < n; r++ {
-		copy(u.pre[r*k+2*n:r*k+3*n], u.G[r*n:(r+1)*n])
+		c := 2 * n
+		for j := 0; j < n; j++ {
+			if u.gcol[j] {
+				u.pre[r*k+c] = u.G[r*n+j]
+				c++
+			}
+		}
 	}
 	if err := Triangularize(u.Sp, u.pre, n, k, u.triP); err != nil {
 		return fmt.Errorf("predict: %w", err)
