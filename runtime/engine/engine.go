@@ -434,15 +434,18 @@ func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
 		return ErrBadSensor
 	}
 	s := e.sensors[m.SensorIdx]
+	// The sensor spoke even when its message is refused: its sequence
+	// number and arrival still count for gaps, rate and age.
+	e.noteArrival(s, m, arrivalNs)
 	if reason, err := e.validate(s, m); err != nil {
 		e.Reject(m.SensorIdx, reason)
 		return err
 	}
+	e.noteOffset(s, m, arrivalNs)
 	e.counters.Messages++
 	e.counters.Detections += uint64(len(m.Dets))
 	s.messages++
 	s.detections += uint64(len(m.Dets))
-	e.noteArrival(s, m, arrivalNs)
 
 	t := m.TNs
 	if e.estimate {
@@ -593,7 +596,7 @@ func (e *Engine) validate(s *sensorRT, m *transport.Measurement) (string, error)
 	return "", nil
 }
 
-// noteArrival keeps the rate, age, sequence-gap and clock-offset statistics.
+// noteArrival keeps the rate, age and sequence-gap statistics.
 func (e *Engine) noteArrival(s *sensorRT, m *transport.Measurement, arrivalNs int64) {
 	if s.haveSeq {
 		switch {
@@ -620,6 +623,10 @@ func (e *Engine) noteArrival(s *sensorRT, m *transport.Measurement, arrivalNs in
 	if !s.haveArrival || arrivalNs > s.lastArrival {
 		s.lastArrival, s.haveArrival = arrivalNs, true
 	}
+}
+
+// noteOffset updates the clock offset estimate with an accepted message.
+func (e *Engine) noteOffset(s *sensorRT, m *transport.Measurement, arrivalNs int64) {
 	// Clock offset: the lower envelope of d = arrival − t_ns. Latency only
 	// adds to d, so its minimum is the offset plus the least latency; the
 	// envelope may rise by at most maxDrift per second of arrival time so
