@@ -71,6 +71,27 @@ func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 // numerically singular. The 1-norm (≥ the 2-norm) makes the test a little
 // stricter and needs no square root.
 func finishLower(L, A []float64, n, k int, sgn []float64) error {
+	if err := checkLower(A, n, k, sgn); err != nil {
+		return err
+	}
+	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal is made
+	// positive column by column.
+	for i := 0; i < n; i++ {
+		row := L[i*n : i*n+n]
+		src := A[i*k : i*k+i+1]
+		for j, v := range src {
+			row[j] = sgn[j] * v
+		}
+		for j := i + 1; j < n; j++ {
+			row[j] = 0
+		}
+	}
+	return nil
+}
+
+// checkLower is the rank and finiteness test of finishLower; it leaves the
+// sign of each diagonal entry of A in sgn.
+func checkLower(A []float64, n, k int, sgn []float64) error {
 	tol := float64(k) * 0x1p-52
 	for i := 0; i < n; i++ {
 		row := A[i*k : i*k+i+1]
@@ -86,18 +107,6 @@ func finishLower(L, A []float64, n, k int, sgn []float64) error {
 			return fmt.Errorf("%w: pre-array rank deficient at column %d", ErrNotPosDef, i)
 		}
 		sgn[i] = math.Copysign(1, d)
-	}
-	// Flipping the sign of a column of L keeps L·Lᵀ, so the diagonal is made
-	// positive column by column.
-	for i := 0; i < n; i++ {
-		row := L[i*n : i*n+n]
-		src := A[i*k : i*k+i+1]
-		for j, v := range src {
-			row[j] = sgn[j] * v
-		}
-		for j := i + 1; j < n; j++ {
-			row[j] = 0
-		}
 	}
 	return nil
 }
@@ -115,10 +124,11 @@ func finishLower(L, A []float64, n, k int, sgn []float64) error {
 // Householder reflections over the full array (measured with
 // BenchmarkUpdateArray). For each row the rotation pairs (c, s) follow from
 // running sums of squares, so their square roots and divisions are
-// independent of one another. A is overwritten; sgn is scratch (N).
-func triangularizeUpdate(L, A []float64, m, n int, sgn []float64) error {
+// independent of one another. A is overwritten; sgn is scratch (N). The
+// blocks are written straight into Sy (m×m), Kbar (n×m) and Spost (n×n).
+func triangularizeUpdate(Sy, Kbar, Spost, A []float64, m, n int, sgn []float64) error {
 	N := m + n
-	if len(A) < N*N || len(L) < N*N || len(sgn) < N {
+	if len(A) < N*N || len(Sy) < m*m || len(Kbar) < n*m || len(Spost) < n*n || len(sgn) < N {
 		return fmt.Errorf("%w: update array m=%d n=%d", ErrDimension, m, n)
 	}
 	if !finite(A[:N*N]) {
@@ -176,7 +186,35 @@ func triangularizeUpdate(L, A []float64, m, n int, sgn []float64) error {
 			}
 		}
 	}
-	return finishLower(L, A, N, N, sgn)
+	if err := checkLower(A, N, N, sgn); err != nil {
+		return err
+	}
+	for i := 0; i < m; i++ {
+		row := Sy[i*m : i*m+m]
+		for j := 0; j < m; j++ {
+			if j <= i {
+				row[j] = sgn[j] * A[i*N+j]
+			} else {
+				row[j] = 0
+			}
+		}
+	}
+	for i := 0; i < n; i++ {
+		src := A[(m+i)*N : (m+i)*N+N]
+		krow := Kbar[i*m : i*m+m]
+		for j := range krow {
+			krow[j] = sgn[j] * src[j]
+		}
+		srow := Spost[i*n : i*n+n]
+		for j := 0; j < n; j++ {
+			if j <= i {
+				srow[j] = sgn[m+j] * src[m+j]
+			} else {
+				srow[j] = 0
+			}
+		}
+	}
+	return nil
 }
 
 // mulLower writes A·S into dst (row stride ds) for the r×n matrix A and the
@@ -371,18 +409,20 @@ func CheckSqrt(S []float64, n int) error {
 
 // finite reports whether every entry is finite: x·0 is 0 for finite x and
 // NaN for ±Inf and NaN, so one branch-free pass suffices (two accumulators
-// halve the add latency chain).
+// shorten the add latency chain).
 func finite(v []float64) bool {
-	var s0, s1 float64
+	var s0, s1, s2, s3 float64
 	j := 0
-	for ; j+2 <= len(v); j += 2 {
+	for ; j+4 <= len(v); j += 4 {
 		s0 += v[j] * 0
 		s1 += v[j+1] * 0
+		s2 += v[j+2] * 0
+		s3 += v[j+3] * 0
 	}
 	for ; j < len(v); j++ {
 		s0 += v[j] * 0
 	}
-	return s0+s1 == 0
+	return (s0+s1)+(s2+s3) == 0
 }
 
 // CholUpdate overwrites the lower-triangular L (n×n, positive diagonal) with

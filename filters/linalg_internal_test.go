@@ -146,9 +146,17 @@ func TestTriangularizeUpdateMatchesLQ(t *testing.T) {
 		if err := Triangularize(want, slices.Clone(A), N, N, NewTriaWork(N, N)); err != nil {
 			t.Fatal(err)
 		}
-		got := make([]float64, N*N)
-		if err := triangularizeUpdate(got, slices.Clone(A), m, n, make([]float64, N)); err != nil {
+		Sy, Kbar, Spost := make([]float64, m*m), make([]float64, n*m), make([]float64, n*n)
+		if err := triangularizeUpdate(Sy, Kbar, Spost, slices.Clone(A), m, n, make([]float64, N)); err != nil {
 			t.Fatal(err)
+		}
+		got := make([]float64, N*N)
+		for i := 0; i < m; i++ {
+			copy(got[i*N:i*N+m], Sy[i*m:i*m+m])
+		}
+		for i := 0; i < n; i++ {
+			copy(got[(m+i)*N:(m+i)*N+m], Kbar[i*m:i*m+m])
+			copy(got[(m+i)*N+m:(m+i)*N+N], Spost[i*n:i*n+n])
 		}
 		for i := range got {
 			if math.Abs(got[i]-want[i]) > 1e-13 {
@@ -178,10 +186,11 @@ func BenchmarkUpdateArray(b *testing.B) {
 	L := make([]float64, N*N)
 	sgn := make([]float64, N)
 	w := NewTriaWork(N, N)
+	Sy, Kbar, Spost := make([]float64, m*m), make([]float64, n*m), make([]float64, n*n)
 	b.Run("givens", func(b *testing.B) {
 		for i := 0; i < b.N; i++ {
 			copy(work, A)
-			if err := triangularizeUpdate(L, work, m, n, sgn); err != nil {
+			if err := triangularizeUpdate(Sy, Kbar, Spost, work, m, n, sgn); err != nil {
 				b.Fatal(err)
 			}
 		}

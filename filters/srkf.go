@@ -30,8 +30,8 @@ type SREKF struct {
 	triP              *TriaWork
 
 	// Update workspace, sized for mCap.
-	H, preU, postU, Spost []float64
-	sgn                   []float64
+	H, preU, Spost []float64
+	sgn            []float64
 }
 
 // NewSREKF returns a square-root EKF for the motion model f. Call Init
@@ -68,7 +68,6 @@ func (k *SREKF) growMeas(m int) {
 	N := m + n
 	k.H = make([]float64, m*n)
 	k.preU = make([]float64, N*N)
-	k.postU = make([]float64, N*N)
 	k.Spost = make([]float64, n*n)
 	k.sgn = make([]float64, N)
 }
@@ -130,16 +129,8 @@ func (k *SREKF) Prepare(h MeasurementModel, Rs []float64) error {
 	for i := 0; i < n; i++ {
 		copy(pre[(m+i)*N+m:(m+i)*N+N], k.S[i*n:i*n+n])
 	}
-	post := k.postU[:N*N]
-	if err := triangularizeUpdate(post, pre, m, n, k.sgn[:N]); err != nil {
+	if err := triangularizeUpdate(k.Sy[:m*m], k.Kbar[:n*m], k.Spost, pre, m, n, k.sgn[:N]); err != nil {
 		return fmt.Errorf("update: %w", err)
-	}
-	for i := 0; i < m; i++ {
-		copy(k.Sy[i*m:i*m+m], post[i*N:i*N+m])
-	}
-	for i := 0; i < n; i++ {
-		copy(k.Kbar[i*m:i*m+m], post[(m+i)*N:(m+i)*N+m])
-		copy(k.Spost[i*n:i*n+n], post[(m+i)*N+m:(m+i)*N+N])
 	}
 	k.h, k.m, k.prepared = h, m, true
 	return nil
