@@ -395,3 +395,30 @@ func TestHealthCounts(t *testing.T) {
 		t.Fatalf("alerts %+v counters %+v", h.Alerts, h.Counters)
 	}
 }
+
+// TestPinholeCamera: a camera alone (image column plus a detector range
+// whose s.d. grows with range) tracks a cart walking across its view; the
+// track must sit on the truth and the mean NIS near m = 2 (E[χ²₂] = 2,
+// common practice for a consistent filter).
+func TestPinholeCamera(t *testing.T) {
+	cam := configs.Sensor{Name: "front_camera", Kind: "pinhole", Mount: configs.Pose{X: 0, Y: 0, YawDeg: 90},
+		NoiseSD: []float64{2, 0.3}, PeriodMS: 66, MaxRange: 60, FOVDeg: 90, PDetect: 1, FX: 800, CX: 640, RangeSDFrac: 0.03}
+	s := &sim{r: rand.New(rand.NewPCG(12, 12)), accelSD: 0.2, sensors: []simSensor{{cfg: cam}},
+		targets: []simTarget{{id: 1, x: [4]float64{-8, 25, 0.8, 0}}}}
+	msgs := s.run(t0 + 20e9)
+	cfg := baseConfig(cam)
+	cfg.Tracker.Motion, cfg.Tracker.Filter, cfg.Tracker.AccelSD = "ctrv", "srukf", 0.3
+	e, outs := runAll(t, cfg, msgs)
+	last, truth := outs[len(outs)-1], msgs[len(msgs)-1].truth
+	if len(last.Tracks) != 1 || e.Counters().Births != 1 {
+		t.Fatalf("%d births, tracks %+v", e.Counters().Births, last.Tracks)
+	}
+	tr := last.Tracks[0]
+	if d := math.Hypot(tr.Pos[0]-truth.pos[0][0], tr.Pos[1]-truth.pos[0][1]); d > 1 {
+		t.Fatalf("track at %v, truth %v (%.2f m off)", tr.Pos, truth.pos[0], d)
+	}
+	st := e.Sensors(nil)[0]
+	if math.Abs(st.MeanNIS-2) > 1 {
+		t.Fatalf("mean NIS %.2f over %d updates, want about 2", st.MeanNIS, st.NISCount)
+	}
+}

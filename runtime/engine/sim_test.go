@@ -119,6 +119,13 @@ func measureFrom(sc configs.Sensor, x [4]float64, z []float64) bool {
 		z[0], z[1] = r, b
 	case "range_bearing_rate":
 		z[0], z[1], z[2] = r, b, (dx*x[2]+dy*x[3])/r
+	case "pinhole":
+		// DESIGN.md: image column from fx and cx (u = cx − fx·y/x, columns
+		// growing to the right), plus the detector's range estimate.
+		if xs <= 0 {
+			return false
+		}
+		z[0], z[1] = sc.CX-sc.FX*ys/xs, r
 	}
 	return true
 }
@@ -169,7 +176,11 @@ func (s *sim) run(endNs int64) []simMsg {
 			}
 			d := transport.Detection{Dim: m}
 			for j := 0; j < m; j++ {
-				d.Z[j] = z[j] + sc.NoiseSD[j]*s.r.NormFloat64()
+				sd := sc.NoiseSD[j]
+				if sc.Kind == "pinhole" && j == 1 {
+					sd = math.Hypot(sd, sc.RangeSDFrac*z[1]) // s.d. grows with range
+				}
+				d.Z[j] = z[j] + sd*s.r.NormFloat64()
 			}
 			msg.m.Dets = append(msg.m.Dets, d)
 		}
