@@ -81,7 +81,8 @@ func (k *SREKF) Predict(dt float64) error {
 	k.f.Propagate(k.xp, k.x, dt)
 	k.f.Jacobian(k.F, k.x, dt)
 	k.f.NoiseFactor(k.G, k.x, dt)
-	if !finite(k.xp) || !finite(k.F) || !finite(k.G) {
+	// Non-finite F or G reach the pre-array and are caught by Triangularize.
+	if !finite(k.xp) {
 		return fmt.Errorf("%w: motion model output at dt=%g", ErrNonFinite, dt)
 	}
 	w := 2 * n
@@ -93,6 +94,7 @@ func (k *SREKF) Predict(dt float64) error {
 		return fmt.Errorf("predict: %w", err)
 	}
 	k.f.Normalize(k.xp)
+	// Copied, not swapped: views from State keep seeing the current state.
 	copy(k.x, k.xp)
 	copy(k.S, k.Sp)
 	k.prepared = false
@@ -114,7 +116,8 @@ func (k *SREKF) Prepare(h MeasurementModel, Rs []float64) error {
 	zhat, H := k.zhat[:m], k.H[:m*n]
 	h.Predict(zhat, k.x)
 	h.Jacobian(H, k.x)
-	if !finite(zhat) || !finite(H) {
+	// A non-finite H reaches the pre-array and is caught there.
+	if !finite(zhat) {
 		return fmt.Errorf("%w: measurement model output", ErrNonFinite)
 	}
 	pre := k.preU[:N*N]

@@ -180,7 +180,8 @@ func (u *SRUKF) Predict(dt float64) error {
 		u.f.Propagate(u.Y[i*n:(i+1)*n], u.X[i*n:(i+1)*n], dt)
 	}
 	u.f.NoiseFactor(u.G, u.x, dt)
-	if !finite(u.Y[:np*n]) || !finite(u.G) {
+	// A non-finite G reaches the pre-array and is caught by Triangularize.
+	if !finite(u.Y[:np*n]) {
 		return fmt.Errorf("%w: motion model output at dt=%g", ErrNonFinite, dt)
 	}
 	// Deviations D_i = Y_i ⊖ Y_0 relative to the zeroth point, in place of
@@ -245,6 +246,7 @@ func (u *SRUKF) Predict(dt float64) error {
 	if !finite(u.Sp) {
 		return fmt.Errorf("%w: predicted square root", ErrNonFinite)
 	}
+	// Copied, not swapped: views from State keep seeing the current state.
 	copy(u.x, u.xp)
 	copy(u.S, u.Sp)
 	u.prepared = false
