@@ -230,7 +230,21 @@ func sameStateR(t *rapid.T, f filters.Filter, c stateCopy, what string) {
 // faulty model (or an overflow) would produce.
 type nanMotion struct {
 	linearMotion
-	bad bool
+	bad, badNoise bool
+}
+
+func (m *nanMotion) Jacobian(F, x []float64, dt float64) {
+	m.linearMotion.Jacobian(F, x, dt)
+	if m.badNoise {
+		F[len(F)-1] = math.Inf(1)
+	}
+}
+
+func (m *nanMotion) NoiseFactor(G, x []float64, dt float64) {
+	m.linearMotion.NoiseFactor(G, x, dt)
+	if m.badNoise {
+		G[0] = math.NaN()
+	}
 }
 
 func (m *nanMotion) Propagate(dst, x []float64, dt float64) {
@@ -285,7 +299,7 @@ func TestPropertyBadInputLeavesStateUntouched(t *testing.T) {
 					}
 					h.Predict(good, kf.State().X)
 					before := snapshotR(kf)
-					kind := rapid.IntRange(0, 13).Draw(t, "kind")
+					kind := rapid.IntRange(0, 14).Draw(t, "kind")
 					bad := append([]float64(nil), good...)
 					badRs := append([]float64(nil), Rs...)
 					var err error
@@ -333,6 +347,10 @@ func TestPropertyBadInputLeavesStateUntouched(t *testing.T) {
 						h.bad = false
 					case 13:
 						err, prepared = kf.Prepare(nil, Rs), false
+					case 14:
+						f.badNoise = true // NaN in G (and Inf in F for the EKF) only
+						err = kf.Predict(0.1)
+						f.badNoise = false
 					}
 					if err == nil {
 						t.Fatalf("bad input kind %d accepted", kind)
