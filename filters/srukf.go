@@ -49,17 +49,21 @@ func newUTWeights(n int, p UTParams) (utWeights, error) {
 // 2001 (Algorithm 3.1, additive noise) with the scaled sigma points of Wan &
 // van der Merwe 2000. It keeps x and lower-triangular S, never P.
 //
-// Predict and Prepare both form S (resp. Sy) as the LQ triangularisation of
-// [√W_i·(Y_i − ȳ), i=1..2n | noise square root], followed by a Cholesky
-// rank-one update with √|W_c0|·(Y_0 − ȳ) when W_c0 > 0, or a downdate when
-// W_c0 < 0; a downdate that would lose positive definiteness is an error and
-// the state is left unchanged. Means and deviations are angle-safe: residuals
-// are taken relative to the zeroth sigma point with the model's Residual and
-// the mean is wrapped with Normalize.
+// Predict forms S as the LQ triangularisation of [√W_i·(Y_i − ȳ), i=1..2n |
+// noise square root], followed by a Cholesky rank-one update with
+// √|W_c0|·(Y_0 − ȳ) when W_c0 > 0, or a downdate when W_c0 < 0; a downdate
+// that would lose positive definiteness is an error and the state is left
+// unchanged. Means and deviations are angle-safe: residuals are taken
+// relative to the zeroth sigma point with the model's Residual and the mean
+// is wrapped with Normalize.
 //
-// The update uses the normalised gain K̄ = P_xz·Sy⁻ᵀ: x⁺ = x + K̄·Sy⁻¹·(z ⊖ ẑ)
-// and S⁺ comes from m rank-one downdates of S by the columns of K̄ (= K·Sy
-// in the paper's notation).
+// Prepare computes the same P_zz and P_xz as the paper, but arranges the
+// measurement update as an orthogonal array (see the comment in Prepare):
+// the innovation square root Sy, the normalised gain K̄ = P_xz·Sy⁻ᵀ and the
+// posterior S⁺ come out of one triangularisation, so Update is
+// x⁺ = x + K̄·Sy⁻¹·(z ⊖ ẑ), S = S⁺ with no downdates by the gain columns.
+// The zeroth-point rank-one update/downdate is applied to the square root of
+// the effective measurement noise there.
 type SRUKF struct {
 	core
 	innovation
@@ -75,10 +79,11 @@ type SRUKF struct {
 	c, s    []float64 // downdate rotations, n
 
 	// Update workspace, sized for mCap.
-	Z, Dz, diff, preU []float64
-	Spost, col        []float64
-	triU              *TriaWork
-	cm, sm            []float64 // downdate rotations, m
+	Z, Dz, preU  []float64
+	Rt, arr, sgn []float64 // R̃ square root, update array, signs
+	Spost        []float64
+	triU         *TriaWork
+	cm, sm       []float64 // downdate rotations, m
 }
 
 // NewSRUKF returns a square-root UKF for the motion model f with the given
@@ -110,7 +115,6 @@ func NewSRUKF(f MotionModel, p UTParams) (*SRUKF, error) {
 		c:     make([]float64, n),
 		s:     make([]float64, n),
 		Spost: make([]float64, n*n),
-		col:   make([]float64, n),
 	}
 	u.growMeas(3)
 	return u, nil
@@ -124,9 +128,11 @@ func (u *SRUKF) growMeas(m int) {
 	np := 2*n + 1
 	u.Z = make([]float64, np*m)
 	u.Dz = make([]float64, np*m)
-	u.diff = make([]float64, n*m)
-	u.preU = make([]float64, m*(2*n+m))
-	u.triU = NewTriaWork(m, 2*n+m)
+	u.preU = make([]float64, m*(m+n))
+	u.triU = NewTriaWork(m, m+n)
+	u.Rt = make([]float64, m*m)
+	u.arr = make([]float64, (m+n)*(m+n))
+	u.sgn = make([]float64, m+n)
 	u.cm = make([]float64, m)
 	u.sm = make([]float64, m)
 }
@@ -300,57 +306,57 @@ func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
 	for r := range mb {
 		mb[r] = -mb[r] // Dz_0
 	}
-	k := 2*n + m
+	// Pair the symmetric sigma points: with a_j = Dz_{1+j}, b_j = Dz_{1+n+j},
+	//   P_xz = Σ W_i (X_i − x)(Z_i − ẑ)ᵀ = S·Ψ,  Ψ row j = W_i·γ·(a_j − b_j)ᵀ
+	// (X_i − x = ±γ·S_j; the zeroth term vanishes), and since W_i·γ² = ½,
+	//   P_zz = R + Σ W_i Dz_i Dz_iᵀ + W_c0 Dz_0 Dz_0ᵀ = R̃ + ΨᵀΨ,
+	//   R̃ = R + (W_i/2)·Σ_j (a_j + b_j)(a_j + b_j)ᵀ + W_c0·Dz_0·Dz_0ᵀ.
+	// R̃'s square root is the QR of [Rs | √(W_i/2)(a_j + b_j)] with the
+	// zeroth point as a rank-one update (W_c0 > 0) or downdate (W_c0 < 0).
+	// Then the update is the same orthogonal array as the SR-EKF's, with Ψᵀ
+	// in the place of H·S:
+	//   [ R̃s  Ψᵀ ]  → [ Sy  0  ]
+	//   [ 0    S ]     [ K̄   S⁺ ]
+	// P_zz, P_xz and P⁺ = P − P_xz·P_zz⁻¹·P_xzᵀ are those of van der Merwe &
+	// Wan 2001, but S⁺ needs no downdates by the gain columns, which lose
+	// accuracy when a measurement is very informative.
+	k := m + n
 	pre := u.preU[:m*k]
-	sw := math.Sqrt(u.w.wi)
-	for i := 1; i < np; i++ {
-		for r := 0; r < m; r++ {
-			pre[r*k+i-1] = sw * Dz[i*m+r]
+	sh := math.Sqrt(u.w.wi / 2)
+	for r := 0; r < m; r++ {
+		row := pre[r*k : r*k+k]
+		copy(row[:m], Rs[r*m:(r+1)*m])
+		for j := 0; j < n; j++ {
+			row[m+j] = sh * (Dz[(1+j)*m+r] + Dz[(1+n+j)*m+r])
 		}
 	}
-	for r := 0; r < m; r++ {
-		copy(pre[r*k+2*n:r*k+k], Rs[r*m:(r+1)*m])
-	}
-	Sy := u.Sy[:m*m]
-	if err := Triangularize(Sy, pre, m, k, u.triU); err != nil {
+	Rt := u.Rt[:m*m]
+	if err := Triangularize(Rt, pre, m, k, u.triU); err != nil {
 		return fmt.Errorf("update: %w", err)
 	}
 	copy(e, Dz[:m])
-	if err := u.rankOne(Sy, m, e, u.cm, u.sm); err != nil {
+	if err := u.rankOne(Rt, m, e, u.cm, u.sm); err != nil {
 		return fmt.Errorf("update: %w", err)
 	}
-	if !finite(Sy) {
-		return fmt.Errorf("%w: innovation square root", ErrNonFinite)
-	}
-	// P_xz = Σ W_i (X_i − x)(Z_i − ẑ)ᵀ with X_{i}−x = ±γ·S_i, and the zeroth
-	// term vanishes: P_xz = W_i·γ·S·(Dz_{1..n} − Dz_{n+1..2n}). Then
-	// K̄ = P_xz·Sy⁻ᵀ, i.e. each row k of K̄ solves Sy·kᵀ = (row of P_xz)ᵀ.
-	// Plain loops: at n ≤ 6, m ≤ 3 blas64.Gemm/Trsm dispatch cost more than
-	// the arithmetic (measured with BenchmarkSRUKFUpdate).
-	diff := u.diff[:n*m]
-	for j := 0; j < n; j++ {
-		for r := 0; r < m; r++ {
-			diff[j*m+r] = Dz[(1+j)*m+r] - Dz[(1+n+j)*m+r]
-		}
-	}
-	Kbar := u.Kbar[:n*m]
+	N := m + n
+	A := u.arr[:N*N]
 	g := u.w.wi * u.w.gamma
-	for i := 0; i < n; i++ {
-		krow := Kbar[i*m : i*m+m]
-		srow := u.S[i*n : i*n+i+1]
-		for r := range krow {
-			var acc float64
-			for l, sl := range srow {
-				acc += sl * diff[l*m+r]
-			}
-			krow[r] = g * acc
-		}
-		for r := 0; r < m; r++ {
-			krow[r] = (krow[r] - dot(krow[:r], Sy[r*m:])) / Sy[r*m+r]
+	for r := 0; r < m; r++ {
+		row := A[r*N : r*N+N]
+		copy(row[:m], Rt[r*m:(r+1)*m])
+		for j := 0; j < n; j++ {
+			row[m+j] = g * (Dz[(1+j)*m+r] - Dz[(1+n+j)*m+r])
 		}
 	}
-	if !finite(Kbar) {
-		return fmt.Errorf("%w: gain", ErrNonFinite)
+	for r := 0; r < n; r++ {
+		row := A[(m+r)*N : (m+r)*N+N]
+		for j := 0; j < m; j++ {
+			row[j] = 0
+		}
+		copy(row[m:], u.S[r*n:(r+1)*n])
+	}
+	if err := triangularizeUpdate(u.Sy[:m*m], u.Kbar[:n*m], u.Spost, A, m, n, u.sgn[:N]); err != nil {
+		return fmt.Errorf("update: %w", err)
 	}
 	u.h, u.m, u.prepared = h, m, true
 	return nil
@@ -360,9 +366,9 @@ func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
 // when z is unusable or nothing is prepared.
 func (u *SRUKF) NIS(z []float64) float64 { return u.whiten(z) }
 
-// Update corrects the state with z and returns its NIS. The posterior
-// square root comes from m downdates of S by the columns of K̄; if one fails
-// the state is unchanged and an error returned.
+// Update corrects the state with z and returns its NIS, taking the
+// posterior square root prepared by Prepare. On error the state is
+// unchanged.
 func (u *SRUKF) Update(z []float64) (float64, error) {
 	if !u.prepared {
 		return 0, ErrNotPrepared
@@ -376,16 +382,6 @@ func (u *SRUKF) Update(z []float64) (float64, error) {
 	}
 	if !u.correctMean(u.f, u.x) {
 		return nis, fmt.Errorf("%w: corrected mean", ErrNonFinite)
-	}
-	n, m := u.n, u.m
-	copy(u.Spost, u.S)
-	for j := 0; j < m; j++ {
-		for r := 0; r < n; r++ {
-			u.col[r] = u.Kbar[r*m+j]
-		}
-		if !cholDowndate(u.Spost, n, u.col, u.c, u.s) {
-			return nis, fmt.Errorf("%w: posterior downdate %d of %d", ErrNotPosDef, j+1, m)
-		}
 	}
 	copy(u.x, u.xnew)
 	copy(u.S, u.Spost)
@@ -412,6 +408,7 @@ func (u *SRUKF) CopyFrom(src Filter) error {
 	copy(u.S, o.S)
 	if o.prepared {
 		u.growMeas(o.m)
+		copy(u.Spost, o.Spost)
 	}
 	u.innovation.copyFrom(&o.innovation, u.n)
 	return nil
