@@ -38,6 +38,7 @@ type ReplayOutput struct {
 type Summary struct {
 	Records         int               `json:"records"`         // recording entries read
 	MalformedLines  int               `json:"malformed_lines"` // lines the reader could not parse (skipped)
+	BadArrival      int               `json:"bad_arrival"`     // entries with rx_ns outside 1970..2116 (skipped)
 	OtherTopic      uint64            `json:"other_topic"`     // entries on no sensor's topic (ignored, as live)
 	Messages        uint64            `json:"messages"`        // measurement messages offered to the decoder
 	Accepted        uint64            `json:"accepted"`
@@ -90,6 +91,11 @@ func describeCounts(m map[string]uint64) string {
 // healthPeriodNs is the health cadence, live (retained topic) and in replay.
 const healthPeriodNs = int64(time.Second)
 
+// maxRxNs bounds a recorded arrival time (year 2116): beyond it, or at or
+// before the Unix epoch, an entry is skipped as broken, which also keeps
+// the clock arithmetic far from int64 overflow.
+const maxRxNs = int64(1) << 62
+
 // maxCatchUpNs bounds how much silence the replay fills with periodic
 // output: after a longer gap in a recording (a paused bench, a stitched
 // file) the clock jumps instead of writing thousands of empty messages.
@@ -122,7 +128,8 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 		nextTick   int64
 		nextHealth int64
 		wallStart  time.Time
-		rx0        int64
+		paceNs     int64 // recorded time elapsed, gaps capped at maxCatchUpNs
+		prevRx     int64
 	)
 	write := func(w io.Writer, b []byte) error {
 		if w == nil {
@@ -174,15 +181,25 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 		if err != nil {
 			return nil, fmt.Errorf("reading the recording: %w", err)
 		}
+		if r.RxNs <= 0 || r.RxNs > maxRxNs {
+			sum.BadArrival++
+			log.Warn("recording entry with an implausible rx_ns skipped", zap.Int("line", r.Line), zap.Int64("rx_ns", r.RxNs))
+			continue
+		}
 		if !started {
 			started = true
-			clock, rx0, wallStart = r.RxNs, r.RxNs, time.Now()
+			clock, prevRx, wallStart = r.RxNs, r.RxNs, time.Now()
 			nextTick = ceilMultiple(r.RxNs, max(period, 1))
 			nextHealth = ceilMultiple(r.RxNs, healthPeriodNs)
 			sum.FirstRxNs = r.RxNs
 		}
 		if opt.Speed > 0 {
-			due := wallStart.Add(time.Duration(float64(r.RxNs-rx0) / opt.Speed))
+			// A long pause in the recording is cut short, as for output.
+			if d := r.RxNs - prevRx; d > 0 {
+				paceNs += min(d, maxCatchUpNs)
+			}
+			prevRx = r.RxNs
+			due := wallStart.Add(time.Duration(float64(paceNs) / opt.Speed))
 			if err := sleepUntil(ctx, due); err != nil {
 				sum.Interrupted = true
 				break

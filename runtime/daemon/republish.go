@@ -40,7 +40,7 @@ type RepublishSummary struct {
 	Records        int
 	MalformedLines int
 	Sent           uint64
-	Skipped        uint64 // on topics outside Topics
+	Skipped        uint64 // on topics outside Topics, or with an implausible rx_ns
 	Failed         uint64 // the broker did not take them
 	Retimed        uint64 // measurement messages whose t_ns was shifted
 }
@@ -59,7 +59,8 @@ func Republish(ctx context.Context, rec io.Reader, pub Publisher, opt RepublishO
 	var (
 		r         transport.Record
 		started   bool
-		rx0       int64
+		prevRx    int64
+		paceNs    int64
 		wallStart time.Time
 		offset    int64
 		parser    fastjson.Parser
@@ -84,13 +85,22 @@ func Republish(ctx context.Context, rec io.Reader, pub Publisher, opt RepublishO
 			sum.Skipped++
 			continue
 		}
+		if r.RxNs <= 0 || r.RxNs > maxRxNs {
+			sum.Skipped++
+			continue
+		}
 		if !started {
 			started = true
-			rx0, wallStart = r.RxNs, time.Now()
+			prevRx, wallStart = r.RxNs, time.Now()
 			offset = wallStart.UnixNano() - r.RxNs
 		}
 		if opt.Speed > 0 {
-			if sleepUntil(ctx, wallStart.Add(time.Duration(float64(r.RxNs-rx0)/opt.Speed))) != nil {
+			// As in Replay, a long pause in the recording is cut short.
+			if d := r.RxNs - prevRx; d > 0 {
+				paceNs += min(d, maxCatchUpNs)
+			}
+			prevRx = r.RxNs
+			if sleepUntil(ctx, wallStart.Add(time.Duration(float64(paceNs)/opt.Speed))) != nil {
 				break
 			}
 		}

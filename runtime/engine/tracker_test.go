@@ -140,7 +140,10 @@ func nearestTrack(o *transport.TracksMsg, p [2]float64, maxD float64) uint64 {
 // TestCrossingTargetsKeepIDs: two targets on an X, passing through the same
 // point at the same time 26° apart. Global nearest neighbour with velocity
 // states must carry each identity through the crossing (common practice:
-// the classic case where nearest-neighbour trackers are judged).
+// the classic case where nearest-neighbour trackers are judged). The
+// tracker's accel_sd (0.1) suits the straight-line truth; with a much looser
+// model (0.5) the velocity bends to a swapped detection during the few
+// scans the two are within noise of each other, and a swap can happen.
 func TestCrossingTargetsKeepIDs(t *testing.T) {
 	for seed := uint64(0); seed < 10; seed++ {
 		r := rand.New(rand.NewPCG(seed, 3))
@@ -234,8 +237,8 @@ func rawSite(sc configs.Sensor, z [3]float64) [2]float64 {
 // TestGOSPATracksBeatRawDetections: five targets, two imperfect sensors
 // (p_detect 0.8, 3 clutter a scan). GOSPA (Rahmathullah, García-Fernández &
 // Svensson 2017; c = 5 m, p = 2, α = 2) of the confirmed tracks must be
-// well under half that of the best sensor's raw detections: a tracker that
-// filters noise, bridges misses and rejects clutter does at least that
+// under a quarter of that of the best sensor's raw detections: a tracker
+// that filters noise, bridges misses and rejects clutter does at least that
 // (common practice).
 func TestGOSPATracksBeatRawDetections(t *testing.T) {
 	r := rand.New(rand.NewPCG(9, 9))
@@ -287,8 +290,8 @@ func TestGOSPATracksBeatRawDetections(t *testing.T) {
 	best := math.Min(rawSum[0]/float64(rawN[0]), rawSum[1]/float64(rawN[1]))
 	trk := trkSum / float64(trkN)
 	t.Logf("mean GOSPA: lidar raw %.3f, radar raw %.3f, tracks %.3f", rawSum[0]/float64(rawN[0]), rawSum[1]/float64(rawN[1]), trk)
-	if trk > 0.5*best {
-		t.Errorf("tracks GOSPA %.3f not under half the best raw sensor's %.3f", trk, best)
+	if trk > 0.25*best {
+		t.Errorf("tracks GOSPA %.3f not under a quarter of the best raw sensor's %.3f", trk, best)
 	}
 }
 
