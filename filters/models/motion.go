@@ -297,7 +297,7 @@ func (m *CA) PropagateNoisy(dst, x []float64, dt float64, ξ []float64) {
 // The transition is written as p += v·dt·(rotation of (s(θ), c(θ)) by yaw)
 // with θ = yawrate·dt, s(θ) = sinθ/θ and c(θ) = (1−cosθ)/θ, which equals the
 // usual v/ω·(sin(yaw+θ)−sin yaw) form but has no 0/0 as ω → 0: below
-// |θ| < 0.05 s, c and their derivatives come from Taylor series, so the state
+// |θ| < 0.05, s, c and their derivatives come from Taylor series, so the state
 // and its Jacobian stay smooth through the straight-line limit.
 //
 // Process noise: white longitudinal acceleration (s.d. accelSD) and white
