@@ -207,3 +207,39 @@ func BenchmarkRewind(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkOutput: one tracks message (50 tracks, each predicted to the
+// stamp) and one health message, into reused buffers.
+func BenchmarkOutput(b *testing.B) {
+	sensors := benchSensors()
+	const lapNs = 20e9
+	p := &lapPlayer{lap: benchLap(sensors, 50, 0, lapNs, 60), lapNs: lapNs, seqs: make([]uint64, 3)}
+	cfg := baseConfig(sensors...)
+	cfg.Tracker.Motion, cfg.Tracker.Filter = "ctrv", "srukf"
+	cfg.Output.RateHz = 1e9 // due at every call
+	e, err := New(cfg, Options{})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var tn int64
+	for i := 0; i < len(p.lap); i++ {
+		m := p.next()
+		if err := e.Ingest(m, m.TNs); err != nil {
+			b.Fatal(err)
+		}
+		tn = m.TNs
+	}
+	var out transport.TracksMsg
+	var h transport.HealthMsg
+	e.Advance(tn, &out)
+	e.Health(tn, &h)
+	b.ReportAllocs()
+	b.ResetTimer()
+	for b.Loop() {
+		tn += 7e6
+		if !e.Advance(tn, &out) || len(out.Tracks) != 50 {
+			b.Fatal("no message")
+		}
+		e.Health(tn, &h)
+	}
+}

@@ -103,9 +103,10 @@ type sensorRT struct {
 	haveOffset      bool
 	offsetArrivalNs int64
 
-	nis    [nisWindow]float64
-	nisN   int
-	nisPos int
+	nis       [nisWindow]float64
+	nisN      int
+	nisPos    int
+	nisBounds [nisWindow + 1][2]float64 // 95% bounds of Σ NIS by sample count, filled on first use
 }
 
 const nisWindow = 64
@@ -213,7 +214,7 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		return nil, fmt.Errorf("engine: timing.clock %q: need synced or estimate", c)
 	}
 	if r := cfg.Output.RateHz; r > 0 {
-		e.periodNs = int64(1e9 / r)
+		e.periodNs = int64(1e9/r + 0.5)
 	} else if r < 0 || math.IsNaN(r) {
 		return nil, fmt.Errorf("engine: output.rate_hz %v: need ≥ 0", r)
 	}

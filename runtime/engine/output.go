@@ -193,10 +193,14 @@ func (s *sensorRT) nisOK() bool {
 	if s.nisN < 10 {
 		return true
 	}
-	dof := float64(s.nisN * s.dim)
-	c := distuv.ChiSquared{K: dof}
+	q := &s.nisBounds[s.nisN]
+	if !(q[1] > 0) {
+		// The quantile inversion is costly and allocates: once per window size.
+		c := distuv.ChiSquared{K: float64(s.nisN * s.dim)}
+		q[0], q[1] = c.Quantile(0.025), c.Quantile(0.975)
+	}
 	sum := s.meanNIS() * float64(s.nisN)
-	return sum >= c.Quantile(0.025) && sum <= c.Quantile(0.975)
+	return sum >= q[0] && sum <= q[1]
 }
 
 // Health writes the health message for the caller's time tNs into out
