@@ -1,13 +1,12 @@
 package transport
 
 import (
+	"bytes"
 	"errors"
 	"math"
 	"strconv"
 	"time"
 	"unsafe"
-
-	"github.com/valyala/fastjson"
 )
 
 // Version is the message schema version this package reads and writes.
@@ -135,30 +134,30 @@ func (l Limits) WithDefaults() Limits {
 }
 
 // maxDecodeDepth is far above a measurement's own depth (object, dets, det,
-// z = 4) and leaves room for nested extension fields; fastjson stops at 300.
+// z = 4) and leaves room for nested extension fields.
 const maxDecodeDepth = 64
 
 // maxInternedClasses bounds the class table so a sender cycling through
 // random class strings cannot grow memory; beyond it classes are copied.
 const maxInternedClasses = 1024
 
-// Decoder decodes v1 measurement messages. It reuses its parser and scratch
-// space, so Decode allocates nothing for accepted messages once warm (a
-// rejected message costs one small error value). A Decoder is not safe for
+// Decoder decodes v1 measurement messages. It reuses its scratch space, so
+// Decode allocates nothing for accepted messages once warm (a rejected
+// message costs one small error value). A Decoder is not safe for
 // concurrent use; give each goroutine its own.
+//
+// Decoding is two steps over the payload bytes: a strict RFC 8259 syntax
+// check (so bad_json means exactly "encoding/json would reject this"), then
+// a walk that picks out the v1 fields from the now-trusted bytes, the last
+// occurrence of a repeated key winning as in encoding/json.
 type Decoder struct {
 	limits  Limits
 	sensors []SensorSpec
 	byName  map[string]int
 	classes map[string]string
 	syntax  syntaxChecker
-	parser  fastjson.Parser
-	num     []byte
-	// Top-level fields of the message being decoded (last one wins when a
-	// key repeats, as with encoding/json).
-	fv, fsensor, fseq, ftns, fdets *fastjson.Value
-	// Fields of the detection being decoded.
-	dz, dr, dclass, dscore *fastjson.Value
+	key     []byte // unescaped key, when a key has escapes
+	str     []byte // unescaped string value
 }
 
 // NewDecoder returns a decoder for the given sensors.
@@ -168,7 +167,8 @@ func NewDecoder(sensors []SensorSpec, limits Limits) (*Decoder, error) {
 		sensors: append([]SensorSpec(nil), sensors...),
 		byName:  make(map[string]int, len(sensors)),
 		classes: make(map[string]string),
-		num:     make([]byte, 0, 64),
+		key:     make([]byte, 0, 32),
+		str:     make([]byte, 0, 64),
 	}
 	for i, s := range sensors {
 		if s.Name == "" {
@@ -215,48 +215,46 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 		return reject(ReasonTooLarge, "JSON nested "+strconv.Itoa(depth)+" levels deep, limit "+
 			strconv.Itoa(maxDecodeDepth))
 	}
-	root, err := d.parser.ParseBytes(payload)
-	if err != nil {
-		// Unreachable after the syntax check; kept so a parser change
-		// cannot turn into a panic.
-		return reject(ReasonBadJSON, "not valid JSON")
+	root := payload[skipSpace(payload, 0):]
+	if root[0] != '{' {
+		return reject(ReasonBadVersion, "message is a JSON "+kindOf(root)+", not an object")
 	}
-	obj, err := root.Object()
-	if err != nil {
-		return reject(ReasonBadVersion, "message is a JSON "+root.Type().String()+", not an object")
-	}
-	d.fv, d.fsensor, d.fseq, d.ftns, d.fdets = nil, nil, nil, nil, nil
-	obj.Visit(func(k []byte, v *fastjson.Value) {
-		switch string(k) {
-		case "v":
-			d.fv = v
-		case "sensor":
-			d.fsensor = v
-		case "seq":
-			d.fseq = v
-		case "t_ns":
-			d.ftns = v
-		case "dets":
-			d.fdets = v
+	var fv, fsensor, fseq, ftns, fdets []byte
+	for it := (members{b: root, i: 1}); ; {
+		k, v, more := it.next()
+		if !more {
+			break
 		}
-	})
+		switch string(d.keyText(k)) {
+		case "v":
+			fv = v
+		case "sensor":
+			fsensor = v
+		case "seq":
+			fseq = v
+		case "t_ns":
+			ftns = v
+		case "dets":
+			fdets = v
+		}
+	}
 
 	// v
-	if d.fv == nil {
+	if fv == nil {
 		return reject(ReasonBadVersion, "v is missing")
 	}
-	if ver, ok := d.intField(d.fv); !ok || ver != Version {
+	if ver, ok := parseInt64(fv); !ok || ver != Version {
 		return reject(ReasonBadVersion, "v must be the integer 1")
 	}
 
 	// sensor
-	if d.fsensor == nil {
+	if fsensor == nil {
 		return reject(ReasonUnknownSensor, "sensor is missing")
 	}
-	name, err := d.fsensor.StringBytes()
-	if err != nil {
-		return reject(ReasonUnknownSensor, "sensor is a "+d.fsensor.Type().String()+", not a string")
+	if fsensor[0] != '"' {
+		return reject(ReasonUnknownSensor, "sensor is a "+kindOf(fsensor)+", not a string")
 	}
+	name := d.strText(fsensor)
 	idx, known := d.byName[string(name)]
 	if !known {
 		return reject(ReasonUnknownSensor, "sensor "+strconv.Quote(string(name))+" is not configured")
@@ -264,19 +262,19 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 	spec := &d.sensors[idx]
 
 	// seq
-	if d.fseq == nil {
+	if fseq == nil {
 		return reject(ReasonBadVersion, "seq is missing")
 	}
-	seq, ok := d.uintField(d.fseq)
+	seq, ok := parseUint64(fseq) // a sequence counter is never negative, not even -0
 	if !ok {
 		return reject(ReasonBadVersion, "seq must be a non-negative integer")
 	}
 
 	// t_ns
-	if d.ftns == nil {
+	if ftns == nil {
 		return reject(ReasonBadVersion, "t_ns is missing")
 	}
-	tns, ok := d.intField(d.ftns)
+	tns, ok := parseInt64(ftns)
 	if !ok {
 		return reject(ReasonTimeImplausible, "t_ns must be an integer number of ns that fits int64")
 	}
@@ -295,19 +293,23 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 	}
 
 	// dets
-	if d.fdets == nil {
+	if fdets == nil {
 		return reject(ReasonBadVersion, "dets is missing (send [] for a scan that saw nothing)")
 	}
-	dets, err := d.fdets.Array()
-	if err != nil {
-		return reject(ReasonBadVersion, "dets is a "+d.fdets.Type().String()+", not a list")
-	}
-	if len(dets) > d.limits.MaxDets {
-		return reject(ReasonTooLarge, "dets has "+strconv.Itoa(len(dets))+" entries, limit "+
-			strconv.Itoa(d.limits.MaxDets))
+	if fdets[0] != '[' {
+		return reject(ReasonBadVersion, "dets is a "+kindOf(fdets)+", not a list")
 	}
 	out := dst.Dets[:0]
-	for i, dv := range dets {
+	it := elements{b: fdets, i: 1}
+	for i := 0; ; i++ {
+		dv, more := it.next()
+		if !more {
+			break
+		}
+		if i == d.limits.MaxDets {
+			return reject(ReasonTooLarge, "dets has "+strconv.Itoa(countElements(fdets))+" entries, limit "+
+				strconv.Itoa(d.limits.MaxDets))
+		}
 		if cap(out) > len(out) {
 			out = out[:len(out)+1]
 		} else {
@@ -322,35 +324,38 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 	return nil
 }
 
-func (d *Decoder) detection(i int, dv *fastjson.Value, spec *SensorSpec, det *Detection) error {
-	o, err := dv.Object()
-	if err != nil {
-		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"] is a "+dv.Type().String()+", not an object")
+func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) error {
+	if dv[0] != '{' {
+		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"] is a "+kindOf(dv)+", not an object")
 	}
-	d.dz, d.dr, d.dclass, d.dscore = nil, nil, nil, nil
-	o.Visit(func(k []byte, v *fastjson.Value) {
-		switch string(k) {
-		case "z":
-			d.dz = v
-		case "r":
-			d.dr = v
-		case "class":
-			d.dclass = v
-		case "score":
-			d.dscore = v
+	var dz, dr, dclass, dscore []byte
+	for it := (members{b: dv, i: 1}); ; {
+		k, v, more := it.next()
+		if !more {
+			break
 		}
-	})
+		switch string(d.keyText(k)) {
+		case "z":
+			dz = v
+		case "r":
+			dr = v
+		case "class":
+			dclass = v
+		case "score":
+			dscore = v
+		}
+	}
 	*det = Detection{Dim: spec.Dim}
 	m := spec.Dim
 
-	if d.dz == nil {
+	if dz == nil {
 		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"].z is missing")
 	}
-	if err := d.vector(i, "z", d.dz, m, det.Z[:]); err != nil {
+	if err := vector(i, "z", dz, m, det.Z[:]); err != nil {
 		return err
 	}
-	if d.dr != nil {
-		if err := d.vector(i, "r", d.dr, m*m, det.R[:]); err != nil {
+	if dr != nil {
+		if err := vector(i, "r", dr, m*m, det.R[:]); err != nil {
 			return err
 		}
 		if msg := checkCovariance(det.R[:m*m], m); msg != "" {
@@ -358,24 +363,20 @@ func (d *Decoder) detection(i int, dv *fastjson.Value, spec *SensorSpec, det *De
 		}
 		det.HasR = true
 	}
-	if d.dclass != nil {
-		c, err := d.dclass.StringBytes()
-		if err != nil {
-			return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"].class is a "+d.dclass.Type().String()+", not a string")
+	if dclass != nil {
+		if dclass[0] != '"' {
+			return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"].class is a "+kindOf(dclass)+", not a string")
 		}
+		c := d.strText(dclass)
 		if len(c) > d.limits.MaxClassBytes {
 			return reject(ReasonTooLarge, "dets["+strconv.Itoa(i)+"].class is "+strconv.Itoa(len(c))+
 				" bytes, limit "+strconv.Itoa(d.limits.MaxClassBytes))
 		}
 		det.Class = d.intern(c)
 	}
-	if d.dscore != nil {
-		s, ok, msg := d.number(d.dscore)
-		if !ok {
-			r := ReasonNonFinite
-			if d.dscore.Type() != fastjson.TypeNumber {
-				r = ReasonBadVersion
-			}
+	if dscore != nil {
+		s, r, msg := number(dscore)
+		if msg != "" {
 			return reject(r, "dets["+strconv.Itoa(i)+"].score "+msg)
 		}
 		det.Score, det.HasScore = s, true
@@ -384,67 +385,136 @@ func (d *Decoder) detection(i int, dv *fastjson.Value, spec *SensorSpec, det *De
 }
 
 // vector reads a JSON list of exactly n finite numbers into out[:n].
-func (d *Decoder) vector(i int, field string, v *fastjson.Value, n int, out []float64) error {
-	a, err := v.Array()
-	if err != nil {
-		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"]."+field+" is a "+v.Type().String()+", not a list")
+func vector(i int, field string, v []byte, n int, out []float64) error {
+	if v[0] != '[' {
+		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"]."+field+" is a "+kindOf(v)+", not a list")
 	}
-	if len(a) != n {
-		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"]."+field+" has "+strconv.Itoa(len(a))+
-			" values, the sensor needs "+strconv.Itoa(n))
-	}
-	for j, e := range a {
-		f, ok, msg := d.number(e)
-		if !ok {
-			r := ReasonNonFinite
-			if e.Type() != fastjson.TypeNumber {
-				r = ReasonBadVersion
-			}
+	it := elements{b: v, i: 1}
+	j := 0
+	for ; ; j++ {
+		e, more := it.next()
+		if !more {
+			break
+		}
+		if j >= n {
+			continue // counted for the message below
+		}
+		f, r, msg := number(e)
+		if msg != "" {
 			return reject(r, "dets["+strconv.Itoa(i)+"]."+field+"["+strconv.Itoa(j)+"] "+msg)
 		}
 		out[j] = f
 	}
+	if j != n {
+		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"]."+field+" has "+strconv.Itoa(j)+
+			" values, the sensor needs "+strconv.Itoa(n))
+	}
 	return nil
 }
 
-// number returns a finite float64. The syntax check has already ruled out
-// NaN/Inf literals, so a non-finite result means the value overflowed.
-// strconv.ParseFloat rounds correctly (as encoding/json does); fastjson's own
-// Float64 does not always (9.62964972193618e-35 comes back one ulp off), so
-// the number's text is parsed here.
-func (d *Decoder) number(v *fastjson.Value) (float64, bool, string) {
-	if v.Type() != fastjson.TypeNumber {
-		return 0, false, "is a " + v.Type().String() + ", not a number"
+// number reads a finite float64 from a number literal. The syntax check has
+// ruled out NaN/Inf literals, so a non-finite result means overflow.
+// strconv.ParseFloat rounds correctly, as encoding/json does (fastjson's
+// Float64 does not always: 9.62964972193618e-35 came back one ulp off).
+func number(v []byte) (float64, Reason, string) {
+	if c := v[0]; c != '-' && (c < '0' || c > '9') {
+		return 0, ReasonBadVersion, "is a " + kindOf(v) + ", not a number"
 	}
-	d.num = v.MarshalTo(d.num[:0])
-	// The string aliases d.num only for the duration of the call.
-	f, err := strconv.ParseFloat(unsafe.String(unsafe.SliceData(d.num), len(d.num)), 64)
-	if err != nil || math.IsInf(f, 0) || math.IsNaN(f) {
-		return 0, false, "is beyond the float64 range"
+	// The string aliases v only for the duration of the call.
+	f, err := strconv.ParseFloat(unsafe.String(unsafe.SliceData(v), len(v)), 64)
+	if err != nil || math.IsInf(f, 0) {
+		return 0, ReasonNonFinite, "is beyond the float64 range"
 	}
-	return f, true, ""
+	return f, 0, ""
 }
 
-// intField reads an integer literal (no fraction or exponent) fitting int64.
-func (d *Decoder) intField(v *fastjson.Value) (int64, bool) {
-	if v.Type() != fastjson.TypeNumber {
-		return 0, false
+// kindOf names the JSON type of a valid value, for error messages.
+func kindOf(v []byte) string {
+	switch v[0] {
+	case '{':
+		return "object"
+	case '[':
+		return "array"
+	case '"':
+		return "string"
+	case 't', 'f':
+		return "bool"
+	case 'n':
+		return "null"
 	}
-	d.num = v.MarshalTo(d.num[:0])
-	return parseInt64(d.num)
+	return "number"
 }
 
-// uintField reads a non-negative integer literal fitting uint64.
-func (d *Decoder) uintField(v *fastjson.Value) (uint64, bool) {
-	if v.Type() != fastjson.TypeNumber {
-		return 0, false
+// keyText returns a raw key (quotes included) unescaped.
+func (d *Decoder) keyText(raw []byte) []byte {
+	s := raw[1 : len(raw)-1]
+	if bytes.IndexByte(s, '\\') < 0 {
+		return s
 	}
-	d.num = v.MarshalTo(d.num[:0])
-	if len(d.num) == 0 || d.num[0] == '-' {
-		// "-0" is an integer but a sequence counter is never negative.
-		return 0, false
+	d.key = unquote(d.key[:0], raw)
+	return d.key
+}
+
+// strText returns a raw string value unescaped; valid until the next call.
+func (d *Decoder) strText(raw []byte) []byte {
+	s := raw[1 : len(raw)-1]
+	if bytes.IndexByte(s, '\\') < 0 {
+		return s
 	}
-	return parseUint64(d.num)
+	d.str = unquote(d.str[:0], raw)
+	return d.str
+}
+
+// members walks the members of a syntactically valid object; i starts
+// after the '{'.
+type members struct {
+	b []byte
+	i int
+}
+
+func (it *members) next() (key, val []byte, ok bool) {
+	b, i := it.b, skipSpace(it.b, it.i)
+	if b[i] == ',' {
+		i = skipSpace(b, i+1)
+	}
+	if b[i] == '}' {
+		return nil, nil, false
+	}
+	kend := skipString(b, i)
+	key = b[i:kend]
+	i = skipSpace(b, skipSpace(b, kend)+1) // past ':'
+	vend := skipValue(b, i)
+	it.i = vend
+	return key, b[i:vend], true
+}
+
+// elements walks the elements of a syntactically valid array; i starts
+// after the '['.
+type elements struct {
+	b []byte
+	i int
+}
+
+func (it *elements) next() (val []byte, ok bool) {
+	b, i := it.b, skipSpace(it.b, it.i)
+	if b[i] == ',' {
+		i = skipSpace(b, i+1)
+	}
+	if b[i] == ']' {
+		return nil, false
+	}
+	vend := skipValue(b, i)
+	it.i = vend
+	return b[i:vend], true
+}
+
+func countElements(arr []byte) int {
+	n := 0
+	for it := (elements{b: arr, i: 1}); ; n++ {
+		if _, more := it.next(); !more {
+			return n
+		}
+	}
 }
 
 func parseUint64(b []byte) (uint64, bool) {

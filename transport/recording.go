@@ -503,7 +503,7 @@ func forEachMember(b []byte, fn func(key, val []byte) bool) {
 		if i >= len(b) || b[i] == '}' {
 			return
 		}
-		kend, _ := scanString(b, i)
+		kend := skipString(b, i)
 		key := b[i:kend]
 		i = skipSpace(b, kend) + 1 // past ':'
 		i = skipSpace(b, i)
@@ -522,15 +522,13 @@ func forEachMember(b []byte, fn func(key, val []byte) bool) {
 func skipValue(b []byte, i int) int {
 	switch b[i] {
 	case '"':
-		end, _ := scanString(b, i)
-		return end
+		return skipString(b, i)
 	case '{', '[':
 		depth := 0
 		for j := i; j < len(b); j++ {
 			switch b[j] {
 			case '"':
-				end, _ := scanString(b, j)
-				j = end - 1
+				j = skipString(b, j) - 1
 			case '{', '[':
 				depth++
 			case '}', ']':
@@ -548,6 +546,27 @@ func skipValue(b []byte, i int) int {
 	default:
 		end, _ := scanNumber(b, i)
 		return end
+	}
+}
+
+// skipString returns the index after the closing quote of the valid string
+// starting at b[i]: the first quote not escaped by an odd run of backslashes.
+func skipString(b []byte, i int) int {
+	j := i + 1
+	for {
+		q := bytes.IndexByte(b[j:], '"')
+		if q < 0 {
+			return len(b)
+		}
+		j += q
+		k := j - 1
+		for k > i && b[k] == '\\' {
+			k--
+		}
+		if (j-1-k)%2 == 0 {
+			return j + 1
+		}
+		j++
 	}
 }
 
