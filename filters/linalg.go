@@ -218,18 +218,25 @@ func triangularizeUpdate(Sy, Kbar, Spost, A []float64, m, n int, sgn []float64) 
 }
 
 // mulLower writes A·S into dst (row stride ds) for the r×n matrix A and the
-// n×n lower-triangular S, skipping S's zero upper part. A plain loop: for
-// these sizes blas64.Gemm's dispatch costs more than the arithmetic.
+// n×n lower-triangular S, skipping S's zero upper part and A's zero entries
+// (transition and measurement matrices are usually sparse). A plain loop:
+// for these sizes blas64.Gemm's dispatch costs more than the arithmetic.
 func mulLower(dst []float64, ds int, A []float64, r, n int, S []float64) {
 	for i := 0; i < r; i++ {
 		a := A[i*n : i*n+n]
 		d := dst[i*ds : i*ds+n]
-		for j := 0; j < n; j++ {
-			var s float64
-			for l := j; l < n; l++ {
-				s += a[l] * S[l*n+j]
+		for j := range d {
+			d[j] = 0
+		}
+		for l, al := range a {
+			if al == 0 {
+				continue
 			}
-			d[j] = s
+			srow := S[l*n : l*n+l+1]
+			dl := d[:len(srow)]
+			for j, v := range srow {
+				dl[j] += al * v
+			}
 		}
 	}
 }
@@ -250,9 +257,16 @@ const smallLQ = 32
 // of length ≥ n.
 func householderLQ(A []float64, n, k int, d []float64) {
 	d = d[:n]
+	next := -1.0 // ‖row i from column i‖², computed while updating row i
 	for i := 0; i < n; i++ {
 		ri := A[i*k+i : i*k+k]
-		nrm := rowNorm(ri)
+		var nrm float64
+		if next > 0x1p-900 && next < 0x1p900 {
+			nrm = math.Sqrt(next)
+		} else {
+			nrm = rowNorm(ri)
+		}
+		next = -1
 		if !(nrm <= math.MaxFloat64) {
 			// Non-finite row: poison the diagonal so the caller reports it.
 			ri[0] = math.NaN()
@@ -304,9 +318,30 @@ func householderLQ(A []float64, n, k int, d []float64) {
 			rr := A[r*k+i : r*k+k]
 			rr = rr[:len(ri)]
 			dr := d[r]
-			for j, uj := range ri {
-				rr[j] -= dr * uj
+			if r > i+1 {
+				for j, uj := range ri {
+					rr[j] -= dr * uj
+				}
+				continue
 			}
+			// Row i+1 is the next to be reflected: its remaining norm is
+			// summed while it is updated (the squares of columns i+1…).
+			rr[0] -= dr * ri[0]
+			var q0, q1 float64
+			j := 1
+			for ; j+2 <= len(ri); j += 2 {
+				a := rr[j] - dr*ri[j]
+				b := rr[j+1] - dr*ri[j+1]
+				rr[j], rr[j+1] = a, b
+				q0 += a * a
+				q1 += b * b
+			}
+			if j < len(ri) {
+				a := rr[j] - dr*ri[j]
+				rr[j] = a
+				q0 += a * a
+			}
+			next = q0 + q1
 		}
 		ri[0] = alpha
 	}
