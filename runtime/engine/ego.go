@@ -45,7 +45,7 @@ func (e *Engine) egoUpdate(sc *scan, s *sensorRT) {
 			e.counters.FilterErrors++
 			return
 		}
-		st.egoInit = true
+		st.egoInit, st.egoNs = true, sc.tNs
 		if s.kind == kindGNSS {
 			return // the fix is the prior's centre; using it twice would be overconfident
 		}

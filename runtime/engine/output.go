@@ -80,8 +80,8 @@ func (e *Engine) emit(stamp int64, out *transport.TracksMsg) {
 	out.Frame = "site"
 	out.Tracks = out.Tracks[:0]
 	dt := 0.0
-	if stamp > st.timeNs {
-		dt = float64(stamp-st.timeNs) * 1e-9
+	if stamp > st.trackNs {
+		dt = float64(stamp-st.trackNs) * 1e-9
 	}
 	n := e.motion.Dim()
 	for i := range st.recs {
@@ -119,7 +119,11 @@ func (e *Engine) emit(stamp int64, out *transport.TracksMsg) {
 	if out.Ego == nil {
 		out.Ego = new(transport.Ego)
 	}
-	e.egoOut(dt, out.Ego)
+	egoDt := 0.0
+	if stamp > st.egoNs {
+		egoDt = float64(stamp-st.egoNs) * 1e-9
+	}
+	e.egoOut(egoDt, out.Ego)
 }
 
 // egoOut writes the platform estimate dt seconds after the state time.

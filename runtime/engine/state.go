@@ -27,13 +27,17 @@ type trackRec struct {
 
 // state is the part of the engine that out-of-sequence processing must be
 // able to restore exactly: the tracks, their filters, the id counter, the
-// common track time and the ego estimate.
+// common track time and the ego estimate. Tracks move only on tracking
+// scans and the ego only on scans, each from its own time, so a fast
+// odometry stream does not cost a prediction of every track.
 type state struct {
 	recs    []trackRec
 	flt     []filters.Filter // flt[i] belongs to recs[i]; spares follow
 	nextID  uint64
-	timeNs  int64 // every track is predicted to this time
+	timeNs  int64 // the newest processed scan
 	hasTime bool
+	trackNs int64 // every track is predicted to this time (tracking scans only)
+	egoNs   int64 // the ego estimate's time
 
 	ego     filters.Filter // nil on a fixed platform
 	egoInit bool
@@ -56,6 +60,7 @@ func copyState(dst, src *state, mk func() (filters.Filter, error)) error {
 		}
 	}
 	dst.nextID, dst.timeNs, dst.hasTime = src.nextID, src.timeNs, src.hasTime
+	dst.trackNs, dst.egoNs = src.trackNs, src.egoNs
 	dst.egoInit = src.egoInit
 	if src.ego != nil && src.egoInit {
 		if err := dst.ego.CopyFrom(src.ego); err != nil {

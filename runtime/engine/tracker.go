@@ -114,18 +114,32 @@ const (
 	egoReadyPosSD = 3.0  // m
 )
 
-// predictTo moves every track (and the ego state) to tNs. A track whose
-// prediction fails is removed: its state can no longer be trusted.
+// predictTo advances the state clock and the ego estimate to tNs.
 func (e *Engine) predictTo(tNs int64) {
 	st := &e.st
-	if !st.hasTime {
+	if !st.hasTime || tNs > st.timeNs {
 		st.timeNs, st.hasTime = tNs, true
+	}
+	if st.ego != nil && st.egoInit && tNs > st.egoNs {
+		if err := st.ego.Predict(float64(tNs-st.egoNs) * 1e-9); err != nil {
+			e.counters.FilterErrors++
+		}
+		st.egoNs = tNs
+	}
+}
+
+// predictTracksTo moves every track to tNs. A track whose prediction fails
+// is removed: its state can no longer be trusted.
+func (e *Engine) predictTracksTo(tNs int64) {
+	st := &e.st
+	if len(st.recs) == 0 {
+		st.trackNs = tNs // nothing to move; births start here
 		return
 	}
-	if tNs <= st.timeNs {
+	if tNs <= st.trackNs {
 		return
 	}
-	dt := float64(tNs-st.timeNs) * 1e-9
+	dt := float64(tNs-st.trackNs) * 1e-9
 	for i := 0; i < len(st.recs); {
 		if err := st.flt[i].Predict(dt); err != nil {
 			e.counters.FilterErrors++
@@ -135,12 +149,7 @@ func (e *Engine) predictTo(tNs int64) {
 		}
 		i++
 	}
-	if st.ego != nil && st.egoInit {
-		if err := st.ego.Predict(dt); err != nil {
-			e.counters.FilterErrors++
-		}
-	}
-	st.timeNs = tNs
+	st.trackNs = tNs
 }
 
 // platformPose is the platform in the site frame at the current state time.
@@ -158,6 +167,7 @@ func (e *Engine) platformPose() Pose {
 func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	st := &e.st
 	ws := &e.ws
+	e.predictTracksTo(sc.tNs)
 	g := s.tm
 	if err := g.SetPlatform(e.platformPose().platform()); err != nil {
 		e.counters.FilterErrors++ // a non-finite ego estimate: nothing can be placed
