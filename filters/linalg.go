@@ -44,9 +44,10 @@ func NewTriaWork(n, k int) *TriaWork {
 // with L·Lᵀ = A·Aᵀ for the n×k pre-array A (row-major, k ≥ n): the "array
 // form" of square-root filtering (Kailath, Sayed & Hassibi 2000, §12.3),
 // realised as the LQ factorisation A = L·Q with Householder reflections
-// (LAPACK dgelqf; a plain loop for small arrays, see smallLQ). A is overwritten. L may not alias A. It fails with
-// ErrNotPosDef when A·Aᵀ is numerically singular (|L_ii| ≤ k·ε·‖row i of
-// L‖₁), and with ErrNonFinite on NaN/Inf, leaving L untouched.
+// (LAPACK dgelqf; a plain loop for small arrays, see smallLQ). A is
+// overwritten; L may not alias A. It fails with ErrNotPosDef when A·Aᵀ is
+// numerically singular (|L_ii| ≤ k·ε·‖row i of L‖₁) and with ErrNonFinite
+// on NaN/Inf, leaving L untouched.
 func Triangularize(L, A []float64, n, k int, w *TriaWork) error {
 	if k < n || len(A) < n*k || len(L) < n*n || w == nil || w.n < n || len(w.work) < n {
 		return fmt.Errorf("%w: Triangularize %d×%d", ErrDimension, n, k)
@@ -242,12 +243,12 @@ func mulLower(dst []float64, ds int, A []float64, r, n int, S []float64) {
 }
 
 // smallLQ is the widest pre-array handled by householderLQ instead of
-// lapack64.Gelqf. Measured (BenchmarkTriangularize, go test -bench
-// Triangularize): for the 5×15, 3×13, 4×8 and 6×6 arrays of the filters,
+// lapack64.Gelqf. Measured with BenchmarkTriangularize (go test -run '^$'
+// -bench Triangularize ./filters/): on the filters' arrays (4×8 to 5×16)
 // Gelqf's per-reflector overhead (Dlarfg, Iladlc/Iladlr scans, Dgemv and
-// Dger through the BLAS interface) costs several times the arithmetic and
-// put the SR-KF CV step over its 0.5 µs budget; the plain loop below is the
-// same Householder algorithm without the indirection.
+// Dger through the BLAS interface) took 1.5–2× the time of the plain loop
+// below and put the SR-KF CV step over its 0.5 µs budget. It is the same
+// Householder algorithm without the indirection.
 const smallLQ = 32
 
 // householderLQ overwrites the lower triangle of the n×k row-major A (k ≥ n)
@@ -443,7 +444,7 @@ func CheckSqrt(S []float64, n int) error {
 }
 
 // finite reports whether every entry is finite: x·0 is 0 for finite x and
-// NaN for ±Inf and NaN, so one branch-free pass suffices (two accumulators
+// NaN for ±Inf and NaN, so one branch-free pass suffices (four accumulators
 // shorten the add latency chain).
 func finite(v []float64) bool {
 	var s0, s1, s2, s3 float64
