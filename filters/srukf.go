@@ -326,7 +326,9 @@ func (u *SRUKF) Prepare(h MeasurementModel, Rs []float64) error {
 	//   P_zz = R + Σ W_i Dz_i Dz_iᵀ + W_c0 Dz_0 Dz_0ᵀ = R̃ + ΨᵀΨ,
 	//   R̃ = R + (W_i/2)·Σ_j (a_j + b_j)(a_j + b_j)ᵀ + W_c0·Dz_0·Dz_0ᵀ.
 	// R̃'s square root is the QR of [Rs | √(W_i/2)(a_j + b_j)] with the
-	// zeroth point as a rank-one update (W_c0 > 0) or downdate (W_c0 < 0).
+	// zeroth point as one more column √W_c0·Dz_0 (W_c0 > 0) or a Cholesky
+	// downdate by √|W_c0|·Dz_0 (W_c0 < 0), which fails if R̃ is not
+	// positive definite.
 	// Then the update is the same orthogonal array as the SR-EKF's, with Ψᵀ
 	// in the place of H·S:
 	//   [ R̃s  Ψᵀ ]  → [ Sy  0  ]
