@@ -59,7 +59,10 @@ func TestOutOfSequenceEqualsInOrder(t *testing.T) {
 		a, b := rbSensor("mast_radar", 0, 0, 0), xySensor("mast_lidar", 1, -1, 30, 0.2)
 		a.ClutterPerScan, b.ClutterPerScan = clutter, clutter
 		a.PDetect, b.PDetect = 0.9, 0.9
-		s := &sim{r: r, accelSD: 0.3, sensors: []simSensor{{cfg: a}, {cfg: b, phaseNs: 17e6}}}
+		// Phase 0 puts both sensors on the same instants: ties in time
+		// must be ordered the same whatever the arrival order.
+		phase := int64(rapid.SampledFrom([]int{0, 17}).Draw(rt, "phase_ms")) * 1e6
+		s := &sim{r: r, accelSD: 0.3, sensors: []simSensor{{cfg: a}, {cfg: b, phaseNs: phase}}}
 		for k := 0; k < nTargets; k++ {
 			s.targets = append(s.targets, simTarget{id: k + 1, x: [4]float64{
 				r.Float64()*60 - 30, r.Float64()*60 - 30, r.NormFloat64(), r.NormFloat64()}})
