@@ -1,0 +1,88 @@
+package broker_test
+
+import (
+	"net"
+	"strings"
+	"testing"
+	"time"
+
+	"go.uber.org/goleak"
+
+	"github.com/godwit-fusion/godwit/transport"
+	"github.com/godwit-fusion/godwit/transport/broker"
+	"github.com/godwit-fusion/godwit/transport/mqtt"
+)
+
+func TestMain(m *testing.M) { goleak.VerifyTestMain(m) }
+
+func TestStartRestartClose(t *testing.T) {
+	b, err := broker.Start(broker.Config{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.HasPrefix(b.URL(), "tcp://127.0.0.1:") || strings.HasSuffix(b.URL(), ":0") {
+		t.Errorf("url %s", b.URL())
+	}
+	addr := b.Addr()
+	if c, err := net.Dial("tcp", addr); err != nil {
+		t.Fatalf("not listening: %v", err)
+	} else {
+		c.Close()
+	}
+	if err := b.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.Close(); err != broker.ErrClosed {
+		t.Errorf("second close: %v", err)
+	}
+	if _, err := net.DialTimeout("tcp", addr, time.Second); err == nil {
+		t.Error("still listening after Close")
+	}
+	// Back on the same address, as the fault tests need.
+	b2, err := broker.Start(broker.Config{Addr: addr})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b2.Close()
+	if b2.Addr() != addr {
+		t.Errorf("restarted on %s, want %s", b2.Addr(), addr)
+	}
+	// A second broker cannot take a busy address.
+	if b3, err := broker.Start(broker.Config{Addr: addr}); err == nil {
+		b3.Close()
+		t.Error("two brokers on one address")
+	}
+}
+
+// TestRetainedFromBroker: a retained message published by the broker itself
+// reaches a client that subscribes later (MQTT 3.1.1 §3.3.1.3).
+func TestRetainedFromBroker(t *testing.T) {
+	b, err := broker.Start(broker.Config{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	if err := b.Publish("demo/status", []byte("online"), true, 1); err != nil {
+		t.Fatal(err)
+	}
+	q := transport.NewQueue(4, 64, 1024)
+	c, err := mqtt.New(mqtt.Options{URL: b.URL(), ClientID: "late-subscriber", CleanSession: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	c.Subscribe("demo/status", 1, q)
+	c.Start()
+	defer c.Close()
+	var in transport.Inbound
+	deadline := time.After(5 * time.Second)
+	for !q.Pop(&in) {
+		select {
+		case <-q.Ready():
+		case <-deadline:
+			t.Fatal("retained message not delivered")
+		}
+	}
+	if string(in.Payload) != "online" || !in.Retained {
+		t.Errorf("got %q retained=%v", in.Payload, in.Retained)
+	}
+}
