@@ -284,3 +284,39 @@ func TestRandomWalkSteadyStateVariance(t *testing.T) {
 		}
 	}
 }
+
+// TestPredictedAndLogDet checks the prepared prediction helpers against the
+// covariance form: ẑ = H·x and ln det(H·P·Hᵀ + R) computed by gonum.
+func TestPredictedAndLogDet(t *testing.T) {
+	rng := rand.New(rand.NewPCG(61, 62))
+	p := newRandomLinearProblem(rng, 4, 2)
+	kf, err := filters.NewSRKF(p.f)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := kf.Init(p.x0, p.S0); err != nil {
+		t.Fatal(err)
+	}
+	if zh, Sy := kf.Predicted(); zh != nil || Sy != nil || !math.IsNaN(kf.LogDetInnovation()) {
+		t.Fatal("prediction helpers answer before Prepare")
+	}
+	if err := kf.Prepare(p.h, p.Rs); err != nil {
+		t.Fatal(err)
+	}
+	zh, _ := kf.Predicted()
+	want := make([]float64, 2)
+	p.h.Predict(want, p.x0)
+	if d := maxRelDiff(zh, want); d > 1e-14 {
+		t.Errorf("ẑ differs from H·x by %g", d)
+	}
+	H := mat.NewDense(2, 4, p.h.H)
+	P := mat.NewDense(4, 4, outer(p.S0, 4, 4))
+	var HP, S mat.Dense
+	HP.Mul(H, P)
+	S.Mul(&HP, H.T())
+	S.Add(&S, mat.NewDense(2, 2, p.R))
+	ld, sign := mat.LogDet(&S)
+	if sign <= 0 || math.Abs(kf.LogDetInnovation()-ld) > 1e-12*math.Max(1, math.Abs(ld)) {
+		t.Errorf("ln det P_zz = %.15g, gonum %.15g (sign %g)", kf.LogDetInnovation(), ld, sign)
+	}
+}
