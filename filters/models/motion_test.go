@@ -85,7 +85,7 @@ func maxAbsDiff(a, b []float64) float64 {
 func TestMotionJacobians(t *testing.T) {
 	cv, ca, ctrv := mustCV(t, 1), mustCA(t, 1), mustCTRV(t, 1, 1)
 	dt := 0.1
-	rates := []float64{0, 1e-12, -1e-9, 1e-5, 0.49, 0.5 - 1e-9, 0.5 + 1e-9, 0.51, -0.7, 2.5, -6}
+	rates := []float64{0, 1e-12, -1e-9, 1e-5, 0.49, 2.5 - 1e-9, 2.5 + 1e-9, -2.51, -0.7, 2.4, -6, 12}
 	for _, w := range rates {
 		x := []float64{3, -4, 7.5, 2.9, w}
 		got := make([]float64, 25)
@@ -122,6 +122,7 @@ func TestCTRVClosedForm(t *testing.T) {
 	dst := make([]float64, 5)
 	for _, c := range []struct{ v, yaw, w, dt float64 }{
 		{5, 0.3, 0.8, 0.5}, {12, -2.9, -1.5, 0.2}, {1, 3.1, 0.2, 2}, {7, 1, 3, 1},
+		{9, 0.5, 0.4, 0.5}, {6, -1, -0.9, 0.25}, // |ωT| < 0.25: the series branch
 	} {
 		x := []float64{10, 20, c.v, c.yaw, c.w}
 		m.Propagate(dst, x, c.dt)
@@ -152,7 +153,7 @@ func TestTurnFnsContinuity(t *testing.T) {
 		a[0], a[1], a[2], a[3] = turnFns(lo)
 		b[0], b[1], b[2], b[3] = turnFns(θ)
 		for i := range a {
-			if math.Abs(a[i]-b[i]) > 1e-12 {
+			if math.Abs(a[i]-b[i]) > 1e-14 {
 				t.Errorf("θ=%v fn %d: series %v vs closed %v", θ, i, a[i], b[i])
 			}
 		}
