@@ -1,7 +1,6 @@
 package transport
 
 import (
-	"bytes"
 	"errors"
 	"math"
 	"strconv"
@@ -447,9 +446,8 @@ func kindOf(v []byte) string {
 
 // keyText returns a raw key (quotes included) unescaped.
 func (d *Decoder) keyText(raw []byte) []byte {
-	s := raw[1 : len(raw)-1]
-	if bytes.IndexByte(s, '\\') < 0 {
-		return s
+	if !hasEscape(raw) {
+		return raw[1 : len(raw)-1]
 	}
 	d.key = unquote(d.key[:0], raw)
 	return d.key
@@ -457,9 +455,8 @@ func (d *Decoder) keyText(raw []byte) []byte {
 
 // strText returns a raw string value unescaped; valid until the next call.
 func (d *Decoder) strText(raw []byte) []byte {
-	s := raw[1 : len(raw)-1]
-	if bytes.IndexByte(s, '\\') < 0 {
-		return s
+	if !hasEscape(raw) {
+		return raw[1 : len(raw)-1]
 	}
 	d.str = unquote(d.str[:0], raw)
 	return d.str

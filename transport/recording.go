@@ -469,7 +469,7 @@ func (rr *RecordReader) parseRecord(b []byte, rec *Record) string {
 }
 
 func (rr *RecordReader) key(raw []byte) []byte {
-	if bytes.IndexByte(raw, '\\') < 0 {
+	if !hasEscape(raw) {
 		return raw[1 : len(raw)-1]
 	}
 	rr.scratch = unquote(rr.scratch[:0], raw)
@@ -550,24 +550,28 @@ func skipValue(b []byte, i int) int {
 }
 
 // skipString returns the index after the closing quote of the valid string
-// starting at b[i]: the first quote not escaped by an odd run of backslashes.
+// starting at b[i]. A plain loop: keys and values here are short, where
+// bytes.IndexByte's call overhead costs more than it saves.
 func skipString(b []byte, i int) int {
-	j := i + 1
-	for {
-		q := bytes.IndexByte(b[j:], '"')
-		if q < 0 {
-			return len(b)
-		}
-		j += q
-		k := j - 1
-		for k > i && b[k] == '\\' {
-			k--
-		}
-		if (j-1-k)%2 == 0 {
+	for j := i + 1; j < len(b); j++ {
+		switch b[j] {
+		case '\\':
+			j++
+		case '"':
 			return j + 1
 		}
-		j++
 	}
+	return len(b)
+}
+
+// hasEscape reports whether a raw string (quotes included) contains an escape.
+func hasEscape(raw []byte) bool {
+	for _, c := range raw {
+		if c == '\\' {
+			return true
+		}
+	}
+	return false
 }
 
 // unquote appends the decoded content of the valid JSON string raw (quotes
