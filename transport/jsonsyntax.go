@@ -1,9 +1,10 @@
 package transport
 
 // A strict JSON syntax check (RFC 8259) that allocates nothing once its stack
-// has grown. fastjson's parser is lenient on purpose (it accepts NaN, loose
-// numbers and unchecked escapes), so every payload passes this check first;
-// the two together accept exactly what encoding/json accepts.
+// has grown. Every measurement payload and recording line passes it first,
+// so the field walks after it can trust the bytes, and "bad_json" means
+// exactly what encoding/json would reject. (fastjson's parser was tried and
+// is lenient on purpose: it accepts NaN, loose numbers, unchecked escapes.)
 
 // maxJSONNesting matches encoding/json (scanner.go, maxNestingDepth), so a
 // document is valid here exactly when json.Valid says so.

@@ -456,7 +456,9 @@ func Backoff(n int, min, max time.Duration, u float64) time.Duration {
 }
 
 // Publish sends a message and waits for it to be handed to the broker (QoS 0)
-// or acknowledged (QoS 1/2), at most the connect timeout.
+// or acknowledged (QoS 1/2), at most the connect timeout. paho keeps a
+// reference to payload while the message is in flight: after a nil return
+// the buffer may be reused; after a timeout it must not be written again.
 func (c *Client) Publish(topic string, payload []byte, qos byte, retain bool) error {
 	if !c.connected.Load() {
 		return errors.New("mqtt: not connected")
