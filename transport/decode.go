@@ -419,12 +419,88 @@ func number(v []byte) (float64, Reason, string) {
 	if c := v[0]; c != '-' && (c < '0' || c > '9') {
 		return 0, ReasonBadVersion, "is a " + kindOf(v) + ", not a number"
 	}
+	if f, ok := exactFloat(v); ok {
+		return f, 0, ""
+	}
 	// The string aliases v only for the duration of the call.
 	f, err := strconv.ParseFloat(unsafe.String(unsafe.SliceData(v), len(v)), 64)
 	if err != nil || math.IsInf(f, 0) {
 		return 0, ReasonNonFinite, "is beyond the float64 range"
 	}
 	return f, 0, ""
+}
+
+// pow10 holds the powers of ten that float64 represents exactly.
+var pow10 = [...]float64{1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10,
+	1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22}
+
+// exactFloat converts a valid JSON number whose decimal significand fits in
+// 53 bits and whose decimal exponent is within ±22: then the significand
+// and 10^|e| are exact doubles and one IEEE multiply or divide gives the
+// correctly rounded result (Clinger 1990, "How to read floating point
+// numbers accurately", the fast path). Sensor data nearly always takes it;
+// anything else reports false and goes to strconv.
+func exactFloat(v []byte) (float64, bool) {
+	i, neg := 0, false
+	if v[0] == '-' {
+		neg, i = true, 1
+	}
+	var mant uint64
+	digits, exp := 0, 0
+	for ; i < len(v) && v[i] >= '0' && v[i] <= '9'; i++ {
+		if mant == 0 && v[i] == '0' {
+			continue
+		}
+		mant = mant*10 + uint64(v[i]-'0')
+		if digits++; digits > 15 {
+			return 0, false
+		}
+	}
+	if i < len(v) && v[i] == '.' {
+		for i++; i < len(v) && v[i] >= '0' && v[i] <= '9'; i++ {
+			exp--
+			if mant == 0 && v[i] == '0' {
+				continue
+			}
+			mant = mant*10 + uint64(v[i]-'0')
+			if digits++; digits > 15 {
+				return 0, false
+			}
+		}
+	}
+	if i < len(v) { // exponent
+		i++
+		eneg := false
+		if v[i] == '+' || v[i] == '-' {
+			eneg = v[i] == '-'
+			i++
+		}
+		e := 0
+		for ; i < len(v); i++ {
+			if e = e*10 + int(v[i]-'0'); e > 1000 {
+				return 0, false
+			}
+		}
+		if eneg {
+			e = -e
+		}
+		exp += e
+	}
+	// 15 digits keep mant below 2^53 (10^15 < 2^53 ≈ 9.007e15).
+	f := float64(mant)
+	switch {
+	case mant == 0:
+	case exp < -22 || exp > 22:
+		return 0, false
+	case exp < 0:
+		f /= pow10[-exp]
+	default:
+		f *= pow10[exp]
+	}
+	if neg {
+		f = -f
+	}
+	return f, true
 }
 
 // kindOf names the JSON type of a valid value, for error messages.

@@ -2,12 +2,15 @@ package transport
 
 import (
 	"errors"
+	"math"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
 	"unsafe"
 
 	"gonum.org/v1/gonum/mat"
+	"pgregory.net/rapid"
 )
 
 // Arrival time used throughout: the DESIGN.md example time stamp plus 10 ms.
@@ -270,3 +273,45 @@ func BenchmarkDecodeRadar3(b *testing.B) {
 }
 
 func unsafeStringData(s string) *byte { return unsafe.StringData(s) }
+
+// TestExactFloatAgainstStrconv: the fast path must agree bit for bit with
+// strconv.ParseFloat (correctly rounded, IEEE 754) wherever it answers.
+func TestExactFloatAgainstStrconv(t *testing.T) {
+	cases := []string{"0", "-0", "1", "-1.5", "23.4", "0.12", "-0.30", "0.0001", "41.0", "1e22", "1e23",
+		"123456789012345", "1234567890123456", "0.000000000000000000000001", "9.62964972193618e-35",
+		"4.35", "1.7976931348623157e308", "5e-324", "0.1e1", "100e-2", "-0.0e5", "3.14159265358979", "1E+2"}
+	for _, c := range cases {
+		want, _ := strconv.ParseFloat(c, 64)
+		if got, ok := exactFloat([]byte(c)); ok && math.Float64bits(got) != math.Float64bits(want) {
+			t.Errorf("%s: fast path %v, strconv %v", c, got, want)
+		}
+	}
+	rapid.Check(t, func(t *rapid.T) {
+		mant := rapid.Int64Range(-1e15, 1e15).Draw(t, "mant")
+		exp := rapid.IntRange(-30, 30).Draw(t, "exp")
+		frac := rapid.IntRange(0, 8).Draw(t, "frac")
+		s := strconv.FormatInt(mant, 10)
+		if frac > 0 {
+			m := strconv.FormatInt(abs(mant), 10)
+			for len(m) <= frac {
+				m = "0" + m
+			}
+			s = m[:len(m)-frac] + "." + m[len(m)-frac:]
+			if mant < 0 {
+				s = "-" + s
+			}
+		}
+		s += "e" + strconv.Itoa(exp)
+		want, _ := strconv.ParseFloat(s, 64)
+		if got, ok := exactFloat([]byte(s)); ok && math.Float64bits(got) != math.Float64bits(want) {
+			t.Fatalf("%s: fast path %v, strconv %v", s, got, want)
+		}
+	})
+}
+
+func abs(x int64) int64 {
+	if x < 0 {
+		return -x
+	}
+	return x
+}
