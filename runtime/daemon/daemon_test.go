@@ -388,3 +388,64 @@ func waitConnected(d *Daemon, timeout time.Duration) bool {
 	}
 	return false
 }
+
+// A full queue drops the oldest messages (the newest are worth more to a
+// tracker, common practice), counts them and says so in the health message.
+func TestDaemonReportsQueueOverflow(t *testing.T) {
+	defer goleak.VerifyNone(t, goleak.IgnoreCurrent())
+	b, err := broker.Start(broker.Config{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	cfg := liveConfig(t, b.URL())
+	cfg.Limits.QueueLength = 4
+	watch := newPeer(t, b.URL(), cfg.Broker.ClientID+"-watch")
+	defer watch.close()
+	watch.sub(cfg.Output.HealthTopic)
+
+	d, err := New(Options{Config: cfg})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The callback's side of the queue, before the engine goroutine runs:
+	// 10 messages into 4 slots.
+	scene := gatesim.NewScene(cfg, time.Now().UnixNano(), 4)
+	for i := 0; i < 10; i++ {
+		now := time.Now().UnixNano()
+		d.queue.Push(cfg.Sensors[1].Topic, scene.Payload(1, uint64(i+1), now), 1, false, now)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- d.Run(ctx) }()
+	m, ok := watch.await(5*time.Second, func(m peerMsg) bool {
+		var h struct {
+			State  string `json:"state"`
+			Alerts []struct {
+				Code, Detail string
+			} `json:"alerts"`
+		}
+		if json.Unmarshal(m.payload, &h) != nil {
+			return false
+		}
+		for _, a := range h.Alerts {
+			if a.Code == "queue_overflow" && h.State == "degraded" {
+				return true
+			}
+		}
+		return false
+	})
+	cancel()
+	if err := <-done; err != nil {
+		t.Fatal(err)
+	}
+	if !ok {
+		t.Fatal("no degraded health message with a queue_overflow alert")
+	}
+	t.Logf("health: %.300s", m.payload)
+	st := d.Stats()
+	// Seqs 7..10 survive: the four newest (drop oldest).
+	if st.QueueDropped != 6 || st.Pipeline.Accepted != 4 {
+		t.Fatalf("dropped %d, accepted %d; want 6 and 4", st.QueueDropped, st.Pipeline.Accepted)
+	}
+}
