@@ -233,18 +233,6 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 		if !g.Visible(px, py) {
 			continue
 		}
-		if g.NoiseSqrt(ws.trackRs[i][:m*m], gs.X) != nil {
-			e.counters.FilterErrors++
-			continue
-		}
-		if egoUnc && !e.addEgoToMeas(s, i, m, gs.X) {
-			continue
-		}
-		if f.Prepare(g, ws.trackRs[i][:m*m]) != nil {
-			e.counters.FilterErrors++
-			continue
-		}
-		ws.vis[i] = true
 		// Coarse gate in the site frame: a detection inside the NIS gate lies
 		// within √(gate·λmax(P_pos + C_det)) of the prediction to first
 		// order; the factor 2 in the radius covers linearisation error.
@@ -258,6 +246,22 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 				hi = mid
 			}
 		}
+		if lo == len(ws.order) || ws.detPos[ws.order[lo]][0] > px+r {
+			ws.vis[i] = true // seen, and nothing near: a miss, no prediction of z needed
+			continue
+		}
+		if g.NoiseSqrt(ws.trackRs[i][:m*m], gs.X) != nil {
+			e.counters.FilterErrors++
+			continue
+		}
+		if egoUnc && !e.addEgoToMeas(s, i, m, gs.X) {
+			continue
+		}
+		if f.Prepare(g, ws.trackRs[i][:m*m]) != nil {
+			e.counters.FilterErrors++
+			continue
+		}
+		ws.vis[i] = true
 		for k := lo; k < len(ws.order); k++ {
 			j := ws.order[k]
 			dp := ws.detPos[j]
