@@ -327,35 +327,48 @@ func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) 
 	if dv[0] != '{' {
 		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"] is a "+kindOf(dv)+", not an object")
 	}
-	var dz, dr, dclass, dscore []byte
+	*det = Detection{Dim: spec.Dim}
+	m := spec.Dim
+	// z and r are read in place while walking the object, so their numbers
+	// are scanned once more rather than twice. A repeated key overrides an
+	// earlier one, its error included (last one wins, as in encoding/json).
+	var zSeen, rSeen bool
+	var zErr, rErr error
+	var dclass, dscore []byte
 	for it := (members{b: dv, i: 1}); ; {
-		k, v, more := it.next()
+		k, at, more := it.key()
 		if !more {
 			break
 		}
 		switch string(d.keyText(k)) {
 		case "z":
-			dz = v
+			zSeen = true
+			it.i, zErr = vector(i, "z", dv, at, m, det.Z[:])
+			continue
 		case "r":
-			dr = v
-		case "class":
-			dclass = v
-		case "score":
-			dscore = v
+			rSeen = true
+			it.i, rErr = vector(i, "r", dv, at, m*m, det.R[:])
+			continue
 		}
+		end := skipValue(dv, at)
+		switch string(d.keyText(k)) {
+		case "class":
+			dclass = dv[at:end]
+		case "score":
+			dscore = dv[at:end]
+		}
+		it.i = end
 	}
-	*det = Detection{Dim: spec.Dim}
-	m := spec.Dim
 
-	if dz == nil {
+	if !zSeen {
 		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"].z is missing")
 	}
-	if err := vector(i, "z", dz, m, det.Z[:]); err != nil {
-		return err
+	if zErr != nil {
+		return zErr
 	}
-	if dr != nil {
-		if err := vector(i, "r", dr, m*m, det.R[:]); err != nil {
-			return err
+	if rSeen {
+		if rErr != nil {
+			return rErr
 		}
 		if msg := checkCovariance(det.R[:m*m], m); msg != "" {
 			return reject(ReasonBadCov, "dets["+strconv.Itoa(i)+"].r "+msg)
@@ -383,32 +396,48 @@ func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) 
 	return nil
 }
 
-// vector reads a JSON list of exactly n finite numbers into out[:n].
-func vector(i int, field string, v []byte, n int, out []float64) error {
-	if v[0] != '[' {
-		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"]."+field+" is a "+kindOf(v)+", not a list")
+// vector reads the value at b[at], which must be a JSON list of exactly n
+// finite numbers, into out[:n]. It returns the end of the value whatever
+// the outcome, so the caller can go on walking the object.
+func vector(i int, field string, b []byte, at, n int, out []float64) (int, error) {
+	if b[at] != '[' {
+		return skipValue(b, at), reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"]."+field+" is a "+
+			kindOf(b[at:])+", not a list")
 	}
-	it := elements{b: v, i: 1}
+	var err error
+	p := at + 1
 	j := 0
 	for ; ; j++ {
-		e, more := it.next()
-		if !more {
+		p = skipSpace(b, p)
+		if b[p] == ',' {
+			p = skipSpace(b, p+1)
+		}
+		if b[p] == ']' {
+			p++
 			break
 		}
-		if j >= n {
-			continue // counted for the message below
+		if c := b[p]; j < n && err == nil && (c == '-' || c >= '0' && c <= '9') {
+			end, _ := scanNumber(b, p)
+			f, r, msg := number(b[p:end])
+			if msg != "" {
+				err = reject(r, "dets["+strconv.Itoa(i)+"]."+field+"["+strconv.Itoa(j)+"] "+msg)
+			}
+			out[j] = f
+			p = end
+			continue
 		}
-		f, r, msg := number(e)
-		if msg != "" {
-			return reject(r, "dets["+strconv.Itoa(i)+"]."+field+"["+strconv.Itoa(j)+"] "+msg)
+		end := skipValue(b, p)
+		if j < n && err == nil {
+			_, r, msg := number(b[p:end])
+			err = reject(r, "dets["+strconv.Itoa(i)+"]."+field+"["+strconv.Itoa(j)+"] "+msg)
 		}
-		out[j] = f
+		p = end
 	}
 	if j != n {
-		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"]."+field+" has "+strconv.Itoa(j)+
+		return p, reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"]."+field+" has "+strconv.Itoa(j)+
 			" values, the sensor needs "+strconv.Itoa(n))
 	}
-	return nil
+	return p, err
 }
 
 // number reads a finite float64 from a number literal. The syntax check has
@@ -546,19 +575,26 @@ type members struct {
 }
 
 func (it *members) next() (key, val []byte, ok bool) {
+	key, at, ok := it.key()
+	if !ok {
+		return nil, nil, false
+	}
+	it.i = skipValue(it.b, at)
+	return key, it.b[at:it.i], true
+}
+
+// key returns the next raw key and where its value starts; the caller moves
+// it.i past the value.
+func (it *members) key() (key []byte, at int, ok bool) {
 	b, i := it.b, skipSpace(it.b, it.i)
 	if b[i] == ',' {
 		i = skipSpace(b, i+1)
 	}
 	if b[i] == '}' {
-		return nil, nil, false
+		return nil, 0, false
 	}
 	kend := skipString(b, i)
-	key = b[i:kend]
-	i = skipSpace(b, skipSpace(b, kend)+1) // past ':'
-	vend := skipValue(b, i)
-	it.i = vend
-	return key, b[i:vend], true
+	return b[i:kend], skipSpace(b, skipSpace(b, kend)+1), true // past ':'
 }
 
 // elements walks the elements of a syntactically valid array; i starts

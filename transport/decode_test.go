@@ -86,6 +86,16 @@ func TestDecodeEmptyScanAndDuplicateKeys(t *testing.T) {
 	if m.Seq != 6 {
 		t.Errorf("seq = %d, want 6", m.Seq)
 	}
+	hdr := `{"v":1,"sensor":"front_camera","seq":7,"t_ns":1764626400123456789,"dets":[`
+	if err := d.Decode([]byte(hdr+`{"z":[1],"r":[-1,0,0,1],"z":[3,4],"r":[2,0,0,2]}]}`), tArrival, &m); err != nil {
+		t.Fatal(err)
+	}
+	if m.Dets[0].Z != [3]float64{3, 4} || m.Dets[0].R != [9]float64{2, 0, 0, 2} {
+		t.Errorf("repeated z/r: %+v", m.Dets[0])
+	}
+	if r, _ := ReasonOf(d.Decode([]byte(hdr+`{"z":[3,4],"z":["a",4]}]}`), tArrival, &m)); r != ReasonBadVersion {
+		t.Errorf("a bad last z must count: %v", r)
+	}
 }
 
 func TestDecodeReasons(t *testing.T) {
