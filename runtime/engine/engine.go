@@ -38,8 +38,9 @@ const (
 	layoutCTRV        // [px, py, v, yaw, yawrate]
 )
 
-// Errors returned by Ingest. ErrLate is the normal fate of a measurement
-// older than the lag window; the others are malformed input.
+// Errors returned by Ingest. ErrLate (older than the lag window) and
+// ErrDuplicate (a repeated message) are normal events on a real network,
+// counted and ignored; the others mean malformed input.
 var (
 	ErrLate        = errors.New("engine: measurement older than the lag window, dropped")
 	ErrBadSensor   = errors.New("engine: sensor index out of range")
@@ -48,7 +49,6 @@ var (
 	ErrBadCov      = errors.New("engine: detection covariance is not positive definite")
 	ErrDuplicate   = errors.New("engine: repeated message (same sensor, time and seq), ignored")
 	ErrEgoSingle   = errors.New("engine: an ego sensor message must carry exactly one detection")
-	ErrEgoOnFixed  = errors.New("engine: ego sensor on a fixed platform")
 	errUnknownKind = errors.New("engine: unknown sensor kind")
 )
 
@@ -87,7 +87,7 @@ type sensorRT struct {
 	rangeSDFrac float64
 	gate        float64 // chi-square quantile of tracker.gate_prob, dim dof
 	mount       Pose
-	periodNs    float64
+	periodNs    float64 // configured, for the health report's expectations
 
 	messages, detections, rejected, lateDropped, lost uint64
 	lastSeq                                           uint64
