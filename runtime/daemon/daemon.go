@@ -3,6 +3,8 @@ package daemon
 import (
 	"context"
 	"fmt"
+	"math"
+	"sort"
 	"sync"
 	"time"
 
@@ -81,6 +83,46 @@ type Daemon struct {
 	alerts        []transport.Alert
 	pubLimit      time.Time
 	pubSuppressed uint64
+	lat           latencies
+}
+
+// latencies keeps the ingest-to-publish latency of the last latencyWindow
+// processed messages: from the arrival the MQTT callback stamped to the
+// publication of the first tracks message that includes the message.
+type latencies struct {
+	pending []int64 // arrival times processed since the last tracks message
+	ring    [latencyWindow]float64
+	n, next int
+	scratch [latencyWindow]float64
+}
+
+const latencyWindow = 1024
+
+func (l *latencies) arrived(arrivalNs int64) {
+	if len(l.pending) < cap(l.pending) {
+		l.pending = append(l.pending, arrivalNs)
+	}
+}
+
+func (l *latencies) published(nowNs int64) {
+	for _, a := range l.pending {
+		l.ring[l.next] = float64(nowNs-a) * 1e-6
+		l.next = (l.next + 1) % latencyWindow
+		l.n = min(l.n+1, latencyWindow)
+	}
+	l.pending = l.pending[:0]
+}
+
+// summary is the median and the 99th percentile (nearest rank) in ms.
+func (l *latencies) summary() transport.Latency {
+	if l.n == 0 {
+		return transport.Latency{}
+	}
+	s := l.scratch[:l.n]
+	copy(s, l.ring[:l.n])
+	sort.Float64s(s)
+	rank := func(p float64) float64 { return s[min(l.n-1, int(math.Ceil(p*float64(l.n)))-1)] }
+	return transport.Latency{P50: rank(0.50), P99: rank(0.99)}
 }
 
 // New builds the pipeline and the queue; Run connects.
@@ -114,6 +156,7 @@ func New(opts Options) (*Daemon, error) {
 		queue:  transport.NewQueue(max(cfg.Limits.QueueLength, 1), 1024, maxBytes),
 		qos:    byte(cfg.Broker.QoS),
 		events: make(chan mqtt.Event, 64),
+		lat:    latencies{pending: make([]int64, 0, 4096)},
 	}, nil
 }
 
@@ -227,24 +270,27 @@ func (d *Daemon) drain(limit int) bool {
 			return false
 		}
 		err := d.pipe.Handle(d.in.Topic, d.in.Payload, d.in.ArrivalNs)
-		if err == nil && d.pipe.PerScan() {
-			d.advance(d.in.ArrivalNs)
+		if err == nil {
+			d.lat.arrived(d.in.ArrivalNs)
+			if d.pipe.PerScan() {
+				d.advance(d.in.ArrivalNs)
+			}
 		}
 	}
 	return d.queue.Len() > 0
 }
 
 func (d *Daemon) advance(nowNs int64) {
-	if b, ok := d.pipe.Advance(nowNs); ok {
-		d.publish(d.cfg.Output.TracksTopic, b, false)
+	if b, ok := d.pipe.Advance(nowNs); ok && d.publish(d.cfg.Output.TracksTopic, b, false) {
+		d.lat.published(time.Now().UnixNano())
 	}
 }
 
-func (d *Daemon) publish(topic string, b []byte, retain bool) {
+func (d *Daemon) publish(topic string, b []byte, retain bool) bool {
 	err := d.client.Publish(topic, b, d.qos, retain)
 	if err == nil {
 		d.published++
-		return
+		return true
 	}
 	d.publishErrors++
 	// A timed-out publish may still be queued inside the MQTT library with
@@ -257,6 +303,7 @@ func (d *Daemon) publish(topic string, b []byte, retain bool) {
 	} else {
 		d.pubSuppressed++
 	}
+	return false
 }
 
 func (d *Daemon) publishHealth(now time.Time) {
@@ -278,6 +325,7 @@ func (d *Daemon) publishHealth(now time.Time) {
 	if !d.client.Connected() {
 		return // nothing to publish to; the next health after reconnect reports it
 	}
+	d.pipe.latency = d.lat.summary()
 	d.publish(d.cfg.Output.HealthTopic, d.pipe.Health(now.UnixNano(), d.alerts), true)
 }
 

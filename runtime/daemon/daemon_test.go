@@ -247,6 +247,16 @@ func daemonRoundTrip(t *testing.T, url string) {
 	if _, ok := watch.await(3*time.Second, func(m peerMsg) bool { return m.topic == cfg.Output.HealthTopic }); !ok {
 		t.Error("no health message within 3 s")
 	}
+	// latency_ms: arrival to publication, measured on the wall clock.
+	if _, ok := watch.await(3*time.Second, func(m peerMsg) bool {
+		var h struct {
+			Latency struct{ P50, P99 float64 } `json:"latency_ms"`
+		}
+		return m.topic == cfg.Output.HealthTopic && json.Unmarshal(m.payload, &h) == nil &&
+			h.Latency.P50 > 0 && h.Latency.P99 >= h.Latency.P50
+	}); !ok {
+		t.Error("no health message with a latency summary")
+	}
 	health := newPeer(t, url, cfg.Broker.ClientID+"-health")
 	health.sub(cfg.Output.HealthTopic)
 	if h, ok := health.await(3*time.Second, func(m peerMsg) bool { return m.retained }); !ok {

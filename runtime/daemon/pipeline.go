@@ -51,6 +51,7 @@ type Pipeline struct {
 	stats  PipelineStats
 
 	confirmed map[uint64]struct{}
+	latency   transport.Latency // the daemon's wall-clock measurement; zero in replay
 	log       *zap.Logger
 	limiter   rejectLimiter
 }
@@ -215,6 +216,7 @@ func (p *Pipeline) encodeTracks() []byte {
 // state at least degraded. The bytes are valid until the next Health.
 func (p *Pipeline) Health(nowNs int64, extra []transport.Alert) []byte {
 	p.eng.Health(nowNs, &p.health)
+	p.health.LatencyMS = p.latency
 	if len(extra) > 0 {
 		p.health.Alerts = append(p.health.Alerts, extra...)
 		if p.health.State == "ok" {

@@ -88,3 +88,30 @@ func TestDecoderLimits(t *testing.T) {
 		t.Fatalf("free-running clocks still judged against arrival: %+v", l)
 	}
 }
+
+// Nearest-rank percentiles (the rank is ⌈p·n⌉; common practice, from
+// memory): for 1..100 ms the median is 50 and the 99th percentile 99.
+func TestLatencySummary(t *testing.T) {
+	l := latencies{pending: make([]int64, 0, 200)}
+	if got := l.summary(); got.P50 != 0 || got.P99 != 0 {
+		t.Fatalf("empty: %+v", got)
+	}
+	const pub = int64(10_000_000_000)
+	for ms := int64(100); ms >= 1; ms-- { // arrival order does not matter
+		l.arrived(pub - ms*1_000_000)
+	}
+	l.published(pub)
+	if got := l.summary(); got.P50 != 50 || got.P99 != 99 {
+		t.Fatalf("1..100 ms: %+v, want p50 50, p99 99", got)
+	}
+	// Only the last 1024 messages count: 2000 at 5 ms push the others out.
+	for i := 0; i < 10; i++ {
+		for k := 0; k < 200; k++ {
+			l.arrived(pub - 5_000_000)
+		}
+		l.published(pub)
+	}
+	if got := l.summary(); got.P50 != 5 || got.P99 != 5 {
+		t.Fatalf("after 2000 × 5 ms: %+v", got)
+	}
+}
