@@ -21,7 +21,7 @@ type Options struct {
 	Logger *zap.Logger     // nil discards
 	Engine engine.Options
 	// MQTT, when set, adjusts the client options built from the
-	// configuration (tests shorten the reconnect backoff).
+	// configuration, e.g. to shorten the reconnect backoff.
 	MQTT func(*mqtt.Options)
 	// HealthPeriod is the cadence of the retained health message; 0 means
 	// 1 s (DESIGN.md).
@@ -125,7 +125,7 @@ func (l *latencies) summary() transport.Latency {
 	return transport.Latency{P50: rank(0.50), P99: rank(0.99)}
 }
 
-// New builds the pipeline and the queue; Run connects.
+// New builds the pipeline and the queue; Run connects. A Daemon runs once.
 func New(opts Options) (*Daemon, error) {
 	cfg := opts.Config
 	if cfg == nil {
@@ -249,8 +249,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 
 // stop is the graceful end: drain, last output, offline, disconnect.
 func (d *Daemon) stop() {
-	for d.drain(d.queue.Cap()) {
-	}
+	// One queue's worth is everything queued at the moment of the stop;
+	// what a flood adds after that is not waited for.
+	d.drain(d.queue.Cap())
 	now := time.Now()
 	if !d.pipe.PerScan() {
 		d.advance(now.UnixNano())
