@@ -232,7 +232,7 @@ func TestRecordCommand(t *testing.T) {
 		pub.pub("yard/other/ignored", p, false) // outside the filter
 		time.Sleep(5 * time.Millisecond)
 	}
-	time.Sleep(time.Second // let the last deliveries land before the stop)
+	time.Sleep(time.Second) // let the last deliveries land before the stop
 	cancel()
 	r := wait(t, res, 10*time.Second)
 	if r.code != exitOK {
