@@ -279,7 +279,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 			if nis <= s.gate {
 				ws.pairs = append(ws.pairs, pair{t: i, d: j, nis: nis})
 			}
-			if nis <= birthGateFactor*s.gate {
+			if nis <= s.gate || (nis <= birthGateFactor*s.gate && st.recs[i].status != statusTentative) {
 				ws.detGated[j] = true
 			}
 		}
@@ -521,10 +521,13 @@ func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
 }
 
 // birthGateFactor: a detection with NIS under this many gates of some
-// track is taken for a stray return of that track (a 1-in-1000 outlier at
-// gate_prob 0.999), not for a new object, and starts no track; without it
-// every outlier would seed a duplicate (common practice). The factor 4
-// doubles the gate radius, which the coarse pre-gate radius still covers.
+// confirmed track is taken for a stray return of that track (a 1-in-1000
+// outlier at gate_prob 0.999), not for a new object, and starts no track;
+// without it every outlier would seed a duplicate (common practice). The
+// factor 4 doubles the gate radius, which the coarse pre-gate radius still
+// covers. Tentative tracks, with their wide velocity prior, would block
+// births over metres of a crowded scene, so against them only the gate
+// itself counts.
 const birthGateFactor = 4
 
 // Birth priors for the higher derivatives (common practice for yard and
