@@ -126,16 +126,17 @@ func (p *Pipeline) RatePeriodNs() int64 {
 // rate-limited, and none of them changes a track.
 func (p *Pipeline) Handle(topic string, payload []byte, arrivalNs int64) error {
 	p.stats.Messages++
-	if !p.listens(topic) {
+	sensor := p.sensorOf(topic)
+	if sensor == notListened {
 		p.stats.OtherTopic++
 		return errOtherTopic
 	}
 	if err := p.dec.Decode(payload, arrivalNs, &p.meas); err != nil {
 		reason, _ := transport.ReasonOf(err)
 		p.stats.Rejected[reason]++
-		// The decoder keeps no sensor after a refusal, so the per-sensor
-		// count cannot be attributed; the per-reason one is.
-		p.eng.Reject(-1, reason.String())
+		// The payload cannot be trusted to name its sensor, but a topic
+		// only one sensor uses does (−1: shared topic, count by reason only).
+		p.eng.Reject(sensor, reason.String())
 		p.limiter.note(p.log, topic, reason.String(), err, arrivalNs)
 		return err
 	}
@@ -155,13 +156,23 @@ func (p *Pipeline) Handle(topic string, payload []byte, arrivalNs int64) error {
 
 var errOtherTopic = errors.New("daemon: message on a topic no sensor listens to")
 
-func (p *Pipeline) listens(topic string) bool {
-	for _, f := range p.filters {
-		if TopicMatches(f, topic) {
-			return true
+func (p *Pipeline) listens(topic string) bool { return p.sensorOf(topic) != notListened }
+
+const notListened = -2
+
+// sensorOf is the index of the one sensor whose topic filter matches topic,
+// −1 when several do, notListened when none does.
+func (p *Pipeline) sensorOf(topic string) int {
+	idx := notListened
+	for i := range p.cfg.Sensors {
+		if TopicMatches(p.cfg.Sensors[i].Topic, topic) {
+			if idx != notListened {
+				return -1
+			}
+			idx = i
 		}
 	}
-	return false
+	return idx
 }
 
 // Advance tells the engine the time and returns an encoded tracks message

@@ -98,8 +98,14 @@ func TestReplayDirtyRecordingGivesCleanTracks(t *testing.T) {
 	if ds.Accepted != cs.Accepted || ds.Messages != cs.Messages+bad {
 		t.Errorf("accepted %d of %d, clean %d of %d, %d bad mixed in", ds.Accepted, ds.Messages, cs.Accepted, cs.Messages, bad)
 	}
-	// The health message reports the same counts (DESIGN.md counters.rejected).
+	// The health message reports the same counts (DESIGN.md counters.rejected),
+	// and, since gatesim sends every bad payload on the radar's own topic,
+	// sensors.gate_radar.rejected is their total.
 	hl := jsonLines(t, health)
+	radar := hl[len(hl)-1]["sensors"].(map[string]any)["gate_radar"].(map[string]any)
+	if got, _ := radar["rejected"].(json.Number).Int64(); uint64(got) != bad {
+		t.Errorf("sensors.gate_radar.rejected = %v, want %d", radar["rejected"], bad)
+	}
 	last := hl[len(hl)-1]["counters"].(map[string]any)["rejected"].(map[string]any)
 	for code, n := range mixed {
 		if code == "malformed_line" {
