@@ -142,7 +142,7 @@ const maxInternedClasses = 1024
 
 // Decoder decodes v1 measurement messages. It reuses its scratch space, so
 // Decode allocates nothing for accepted messages once warm (a rejected
-// message costs one small error value). A Decoder is not safe for
+// message costs its error value and text). A Decoder is not safe for
 // concurrent use; give each goroutine its own.
 //
 // Decoding is two steps over the payload bytes: a strict RFC 8259 syntax
