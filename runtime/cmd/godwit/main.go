@@ -62,6 +62,17 @@ godwit is not a certified safety component; see the README.`,
 	for _, c := range commands {
 		root.AddCommand(c())
 	}
+	// cobra's own commands get an example too, like every other command.
+	root.InitDefaultHelpCmd()
+	root.InitDefaultCompletionCmd()
+	for _, c := range root.Commands() {
+		switch {
+		case c.Name() == "help" && c.Example == "":
+			c.Example = "  godwit help replay"
+		case c.Name() == "completion" && c.Example == "":
+			c.Example = "  godwit completion bash > /etc/bash_completion.d/godwit"
+		}
+	}
 	return root
 }
 
