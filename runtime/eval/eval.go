@@ -534,7 +534,7 @@ func (e *Evaluator) AddDetections(sensor string, tNs int64, pos [][2]float64) er
 }
 
 type baseline struct {
-	scans, skipped, bad        int
+	scans, skipped, bad         int
 	gospa, loc, miss, fls, ospa float64
 }
 
