@@ -91,7 +91,7 @@ func TestDecodeRoundTripsEncoder(t *testing.T) {
 				Severity: rapid.SampledFrom([]string{"", "warning", "error"}).Draw(rt, "sev"),
 				Sensor:   rapid.SampledFrom([]string{"", "front_radar"}).Draw(rt, "sensor"),
 				Track:    rapid.Uint64().Draw(rt, "track"), SinceNs: rapid.Int64().Draw(rt, "since"),
-				Detail:   rapid.String().Draw(rt, "detail")})
+				Detail: rapid.String().Draw(rt, "detail")})
 		}
 		seen := map[string]bool{}
 		for i, n := 0, rapid.IntRange(0, 4).Draw(rt, "sensors"); i < n; i++ {
