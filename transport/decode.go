@@ -299,10 +299,12 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 		return reject(ReasonBadVersion, "dets is a "+kindOf(fdets)+", not a list")
 	}
 	out := dst.Dets[:0]
-	it := elements{b: fdets, i: 1}
-	for i := 0; ; i++ {
-		dv, more := it.next()
-		if !more {
+	for i, p := 0, 1; ; i++ {
+		p = skipSpace(fdets, p)
+		if fdets[p] == ',' {
+			p = skipSpace(fdets, p+1)
+		}
+		if fdets[p] == ']' {
 			break
 		}
 		if i == d.limits.MaxDets {
@@ -314,18 +316,21 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 		} else {
 			out = append(out, Detection{})
 		}
-		if err := d.detection(i, dv, spec, &out[len(out)-1]); err != nil {
+		end, err := d.detection(i, fdets, p, spec, &out[len(out)-1])
+		if err != nil {
 			dst.Dets = out[:0]
 			return err
 		}
+		p = end
 	}
 	*dst = Measurement{V: Version, Sensor: spec.Name, SensorIdx: idx, Seq: seq, TNs: tns, Dets: out}
 	return nil
 }
 
-func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) error {
-	if dv[0] != '{' {
-		return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"] is a "+kindOf(dv)+", not an object")
+// detection decodes the detection at dv[at] and returns the end of it.
+func (d *Decoder) detection(i int, dv []byte, at int, spec *SensorSpec, det *Detection) (int, error) {
+	if dv[at] != '{' {
+		return 0, reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"] is a "+kindOf(dv[at:])+", not an object")
 	}
 	*det = Detection{Dim: spec.Dim}
 	m := spec.Dim
@@ -335,7 +340,8 @@ func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) 
 	var zSeen, rSeen bool
 	var zErr, rErr error
 	var dclass, dscore []byte
-	for it := (members{b: dv, i: 1}); ; {
+	it := members{b: dv, i: at + 1}
+	for {
 		k, at, more := it.key()
 		if !more {
 			break
@@ -361,27 +367,27 @@ func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) 
 	}
 
 	if !zSeen {
-		return reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"].z is missing")
+		return 0, reject(ReasonBadDims, "dets["+strconv.Itoa(i)+"].z is missing")
 	}
 	if zErr != nil {
-		return zErr
+		return 0, zErr
 	}
 	if rSeen {
 		if rErr != nil {
-			return rErr
+			return 0, rErr
 		}
 		if msg := checkCovariance(det.R[:m*m], m); msg != "" {
-			return reject(ReasonBadCov, "dets["+strconv.Itoa(i)+"].r "+msg)
+			return 0, reject(ReasonBadCov, "dets["+strconv.Itoa(i)+"].r "+msg)
 		}
 		det.HasR = true
 	}
 	if dclass != nil {
 		if dclass[0] != '"' {
-			return reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"].class is a "+kindOf(dclass)+", not a string")
+			return 0, reject(ReasonBadVersion, "dets["+strconv.Itoa(i)+"].class is a "+kindOf(dclass)+", not a string")
 		}
 		c := d.strText(dclass)
 		if len(c) > d.limits.MaxClassBytes {
-			return reject(ReasonTooLarge, "dets["+strconv.Itoa(i)+"].class is "+strconv.Itoa(len(c))+
+			return 0, reject(ReasonTooLarge, "dets["+strconv.Itoa(i)+"].class is "+strconv.Itoa(len(c))+
 				" bytes, limit "+strconv.Itoa(d.limits.MaxClassBytes))
 		}
 		det.Class = d.intern(c)
@@ -389,11 +395,11 @@ func (d *Decoder) detection(i int, dv []byte, spec *SensorSpec, det *Detection) 
 	if dscore != nil {
 		s, r, msg := number(dscore)
 		if msg != "" {
-			return reject(r, "dets["+strconv.Itoa(i)+"].score "+msg)
+			return 0, reject(r, "dets["+strconv.Itoa(i)+"].score "+msg)
 		}
 		det.Score, det.HasScore = s, true
 	}
-	return nil
+	return it.i, nil
 }
 
 // vector reads the value at b[at], which must be a JSON list of exactly n
@@ -591,6 +597,7 @@ func (it *members) key() (key []byte, at int, ok bool) {
 		i = skipSpace(b, i+1)
 	}
 	if b[i] == '}' {
+		it.i = i + 1 // the end of the object
 		return nil, 0, false
 	}
 	kend := skipString(b, i)
