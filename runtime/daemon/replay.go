@@ -69,6 +69,10 @@ func (s *Summary) String() string {
 	if s.Interrupted {
 		b.WriteString(" (interrupted)")
 	}
+	if s.OtherTopic > 0 || s.BadArrival > 0 {
+		fmt.Fprintf(&b, "\nignored: %d entries on topics no configured sensor uses, %d with an implausible rx_ns",
+			s.OtherTopic, s.BadArrival)
+	}
 	return b.String()
 }
 

@@ -118,6 +118,10 @@ func runReplay(cmd *cobra.Command, f *replayFlags) error {
 		return err
 	}
 	fmt.Fprintf(cmd.OutOrStdout(), "%s\nwrote %s\n", sum, f.out)
+	if sum.Accepted == 0 {
+		fmt.Fprintf(cmd.ErrOrStderr(), "godwit: warning: no measurement of %s was accepted; is %s the configuration it was recorded with?\n",
+			f.in, f.config)
+	}
 	return nil
 }
 
