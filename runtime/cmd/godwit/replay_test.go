@@ -155,3 +155,46 @@ func TestReplayCommandUsage(t *testing.T) {
 		t.Errorf("unknown recording version: exit %d, want %d", code, exitRuntime)
 	}
 }
+
+// Every shipped scenario of `godwit simulate` (its own faults included)
+// replays with the configuration it names into output that conforms to v1,
+// judged by the project's contract checker.
+func TestReplaySimulatedScenarios(t *testing.T) {
+	root := newRootCmd()
+	if c, _, err := root.Find([]string{"simulate"}); err != nil || c.Name() != "simulate" {
+		t.Skip("no simulate command in this build")
+	}
+	for _, sc := range []string{"dock-post", "campus-shuttle", "crossing", "dense"} {
+		t.Run(sc, func(t *testing.T) {
+			if testing.Short() && sc == "dense" {
+				t.Skip("dense takes seconds of engine time")
+			}
+			dir := t.TempDir()
+			if code, _, e := runCmd(t, nil, "simulate", "--scenario", sc, "--out", dir, "--seconds", "5"); code != exitOK {
+				t.Skipf("simulate %s: exit %d: %s", sc, code, e)
+			}
+			rec := filepath.Join(dir, "recording.jsonl")
+			head, err := os.ReadFile(rec)
+			if err != nil {
+				t.Fatal(err)
+			}
+			// The header note names the configuration the scenario is for.
+			cfg := ""
+			if i := bytes.Index(head, []byte("config ")); i >= 0 {
+				cfg = strings.FieldsFunc(string(head[i+len("config "):]), func(r rune) bool { return r == ',' || r == '"' || r == ' ' })[0]
+			}
+			if cfg == "" {
+				t.Skip("the recording header names no configuration")
+			}
+			out := filepath.Join(dir, "out")
+			code, stdout, e := runCmd(t, nil, "replay", "--config", filepath.Join("..", "..", "..", "configs", cfg+".yaml"), "--in", rec, "--out", out)
+			if code != exitOK {
+				t.Fatalf("replay: exit %d: %s", code, e)
+			}
+			if strings.Contains(e, "no measurement") {
+				t.Fatalf("nothing accepted: %s", stdout)
+			}
+			checkV1(t, out, rec)
+		})
+	}
+}
