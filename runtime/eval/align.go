@@ -32,7 +32,11 @@ func truthAt(lines []TruthLine, t, tol int64, dst []TruthObject) (objs []TruthOb
 		}
 		return dst, ego, false, true
 	}
-	if k > 0 && k < n && lines[k].TNs-lines[k-1].TNs <= 2*tol {
+	gap := int64(math.MaxInt64 - 1)
+	if tol < gap/2 {
+		gap = 2 * tol
+	}
+	if k > 0 && k < n && sub(lines[k].TNs, lines[k-1].TNs) <= gap {
 		a, b := &lines[k-1], &lines[k]
 		w := float64(t-a.TNs) / float64(b.TNs-a.TNs)
 		nearA := t-a.TNs <= b.TNs-t
@@ -73,13 +77,13 @@ func truthAt(lines []TruthLine, t, tol int64, dst []TruthObject) (objs []TruthOb
 		j = 0
 	case k == n:
 		j = n - 1
-	case t-lines[k-1].TNs <= lines[k].TNs-t:
+	case sub(t, lines[k-1].TNs) <= sub(lines[k].TNs, t):
 		j = k - 1
 	default:
 		j = k
 	}
-	dt := t - lines[j].TNs
-	if dt > tol || -dt > tol {
+	dt := sub(t, lines[j].TNs)
+	if dt > tol || dt < -tol {
 		return dst, ego, false, false
 	}
 	for i := range lines[j].Objects {
@@ -113,4 +117,17 @@ func lerp2(a, b [2]float64, w float64) [2]float64 {
 func carry(o *TruthObject, dtNs int64) TruthObject {
 	s := float64(dtNs) * 1e-9
 	return TruthObject{ID: o.ID, Pos: [2]float64{o.Pos[0] + s*o.Vel[0], o.Pos[1] + s*o.Vel[1]}, Vel: o.Vel}
+}
+
+// sub is a − b saturated to the int64 range: times from a broken file may
+// lie far apart.
+func sub(a, b int64) int64 {
+	d := a - b
+	if (b < 0 && d < a) || (b > 0 && d > a) {
+		if b < 0 {
+			return math.MaxInt64
+		}
+		return math.MinInt64
+	}
+	return d
 }

@@ -138,14 +138,14 @@ func parseTruth(v *fastjson.Value) (TruthLine, string) {
 		return tl, "t_ns missing"
 	}
 	var err error
-	if tl.TNs, err = t.Int64(); err != nil {
+	if tl.TNs, err = int64v(t); err != nil {
 		return tl, "t_ns is not an integer: " + err.Error()
 	}
 	objs := v.Get("objects")
 	if objs == nil {
 		return tl, "objects missing"
 	}
-	arr, err := objs.Array()
+	arr, err := array(objs)
 	if err != nil {
 		return tl, "objects is not an array"
 	}
@@ -156,7 +156,7 @@ func parseTruth(v *fastjson.Value) (TruthLine, string) {
 		if o.Type() != fastjson.TypeObject {
 			return tl, fmt.Sprintf("objects[%d] is not an object", i)
 		}
-		id, err := o.Get("id").StringBytes()
+		id, err := str(o.Get("id"))
 		if err != nil || len(id) == 0 {
 			return tl, fmt.Sprintf("objects[%d].id must be a non-empty string", i)
 		}
@@ -197,10 +197,10 @@ func parseTracks(v *fastjson.Value) (transport.TracksMsg, string) {
 		return m, "want a JSON object"
 	}
 	var err error
-	if m.V, err = v.Get("v").Int(); err != nil || m.V != transport.Version {
+	if m.V, err = integer(v.Get("v")); err != nil || m.V != transport.Version {
 		return m, fmt.Sprintf("v must be %d", transport.Version)
 	}
-	if m.TNs, err = v.Get("t_ns").Int64(); err != nil {
+	if m.TNs, err = int64v(v.Get("t_ns")); err != nil {
 		return m, "t_ns is not an integer"
 	}
 	m.Vehicle = string(v.GetStringBytes("vehicle"))
@@ -209,7 +209,7 @@ func parseTracks(v *fastjson.Value) (transport.TracksMsg, string) {
 	if m.Frame != "site" {
 		return m, fmt.Sprintf("frame %q, want \"site\"", m.Frame)
 	}
-	arr, err := v.Get("tracks").Array()
+	arr, err := array(v.Get("tracks"))
 	if err != nil {
 		return m, "tracks is not an array"
 	}
@@ -219,10 +219,10 @@ func parseTracks(v *fastjson.Value) (transport.TracksMsg, string) {
 		if o.Type() != fastjson.TypeObject {
 			return m, fmt.Sprintf("tracks[%d] is not an object", i)
 		}
-		if t.ID, err = o.Get("id").Uint64(); err != nil {
+		if t.ID, err = uint64v(o.Get("id")); err != nil {
 			return m, fmt.Sprintf("tracks[%d].id is not an unsigned integer", i)
 		}
-		st, err := o.Get("status").StringBytes()
+		st, err := str(o.Get("status"))
 		if err != nil {
 			return m, fmt.Sprintf("tracks[%d].status is not a string", i)
 		}
@@ -273,7 +273,7 @@ func vecN(v *fastjson.Value, dst []float64, nullOK bool) string {
 	if v == nil {
 		return "missing"
 	}
-	arr, err := v.Array()
+	arr, err := array(v)
 	if err != nil || len(arr) != len(dst) {
 		return fmt.Sprintf("must be an array of %d numbers", len(dst))
 	}
@@ -301,4 +301,43 @@ func number(v *fastjson.Value, nullOK bool) (float64, string) {
 		return 0, "overflows a float64"
 	}
 	return f, ""
+}
+
+// errMissing stands for an absent key: fastjson's typed getters need a
+// value, and Get returns nil for a missing key.
+var errMissing = errors.New("missing")
+
+func str(v *fastjson.Value) ([]byte, error) {
+	if v == nil {
+		return nil, errMissing
+	}
+	return v.StringBytes()
+}
+
+func array(v *fastjson.Value) ([]*fastjson.Value, error) {
+	if v == nil {
+		return nil, errMissing
+	}
+	return v.Array()
+}
+
+func integer(v *fastjson.Value) (int, error) {
+	if v == nil {
+		return 0, errMissing
+	}
+	return v.Int()
+}
+
+func int64v(v *fastjson.Value) (int64, error) {
+	if v == nil {
+		return 0, errMissing
+	}
+	return v.Int64()
+}
+
+func uint64v(v *fastjson.Value) (uint64, error) {
+	if v == nil {
+		return 0, errMissing
+	}
+	return v.Uint64()
 }
