@@ -219,12 +219,9 @@ func (d *Decoder) decode(payload []byte, arrivalNs int64, dst *Measurement) erro
 		return reject(ReasonBadVersion, "message is a JSON "+kindOf(root)+", not an object")
 	}
 	var fv, fsensor, fseq, ftns, fdets []byte
-	for it := (members{b: root, i: 1}); ; {
-		k, v, more := it.next()
-		if !more {
-			break
-		}
-		switch string(d.keyText(k)) {
+	for _, sp := range d.syntax.top {
+		v := payload[sp.v0:sp.v1]
+		switch string(d.keyText(payload[sp.k0:sp.k1])) {
 		case "v":
 			fv = v
 		case "sensor":
@@ -578,15 +575,6 @@ func (d *Decoder) strText(raw []byte) []byte {
 type members struct {
 	b []byte
 	i int
-}
-
-func (it *members) next() (key, val []byte, ok bool) {
-	key, at, ok := it.key()
-	if !ok {
-		return nil, nil, false
-	}
-	it.i = skipValue(it.b, at)
-	return key, it.b[at:it.i], true
 }
 
 // key returns the next raw key and where its value starts; the caller moves

@@ -50,6 +50,7 @@ func FuzzDecode(f *testing.F) {
 			if valid == (err != nil && r == ReasonBadJSON) {
 				t.Fatalf("json.Valid %v but err %v for %q", valid, err, in)
 			}
+			checkTopSpans(t, d, in, valid)
 		}
 		if err != nil {
 			if len(m.Dets) != 0 || m.Sensor != "" {
@@ -102,6 +103,32 @@ func FuzzDecode(f *testing.F) {
 			}
 		}
 	})
+}
+
+// checkTopSpans compares the member spans the syntax check records for a
+// top-level object with encoding/json's raw members (last key wins).
+func checkTopSpans(t *testing.T, d *Decoder, in []byte, valid bool) {
+	t.Helper()
+	var ref map[string]json.RawMessage
+	if !valid || json.Unmarshal(in, &ref) != nil {
+		return
+	}
+	got := map[string][]byte{}
+	for _, sp := range d.syntax.top {
+		k := in[sp.k0:sp.k1]
+		if bytes.IndexByte(k, '\\') >= 0 || !utf8.Valid(k) {
+			return // encoding/json rewrites such keys; not comparable byte for byte
+		}
+		got[string(k[1:len(k)-1])] = in[sp.v0:sp.v1]
+	}
+	if len(got) != len(ref) {
+		t.Fatalf("%d top-level members, encoding/json %d: %q", len(got), len(ref), in)
+	}
+	for k, v := range ref {
+		if !bytes.Equal(got[k], v) {
+			t.Fatalf("member %q: %q, encoding/json %q", k, got[k], v)
+		}
+	}
 }
 
 func num(t *testing.T, v any) float64 {

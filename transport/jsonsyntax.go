@@ -12,7 +12,14 @@ const maxJSONNesting = 10000
 
 type syntaxChecker struct {
 	stack []byte // '{' or '[' per open container
+	// top lists the members of a top-level object as the check finds them,
+	// so a decoder can go straight to a field without scanning again.
+	top []memberSpan
 }
+
+// memberSpan locates one member: b[k0:k1] is the key with its quotes and
+// b[v0:v1] the value.
+type memberSpan struct{ k0, k1, v0, v1 int }
 
 // syntaxError says where and why a document is not JSON. why is a constant
 // string so reporting it costs nothing.
@@ -25,6 +32,7 @@ type syntaxError struct {
 // surrounding whitespace. depth is the deepest nesting seen.
 func (c *syntaxChecker) check(b []byte) (depth int, serr syntaxError, ok bool) {
 	c.stack = c.stack[:0]
+	c.top = c.top[:0]
 	n := len(b)
 	i := skipSpace(b, 0)
 	for {
@@ -46,10 +54,15 @@ func (c *syntaxChecker) check(b []byte) (depth int, serr syntaxError, ok bool) {
 				break
 			}
 			if ch == '{' {
-				var e syntaxError
-				if i, e = scanMember(b, i); e.why != "" {
+				k0 := i
+				k1, v0, e := scanMember(b, i)
+				if e.why != "" {
 					return depth, e, false
 				}
+				if len(c.stack) == 1 {
+					c.top = append(c.top, memberSpan{k0, k1, v0, -1})
+				}
+				i = v0
 			}
 			continue
 		case ch == '"':
@@ -85,6 +98,9 @@ func (c *syntaxChecker) check(b []byte) (depth int, serr syntaxError, ok bool) {
 
 		// After a complete value: close containers or move to the next element.
 		for {
+			if len(c.stack) == 1 && len(c.top) > 0 && c.top[len(c.top)-1].v1 < 0 {
+				c.top[len(c.top)-1].v1 = i // a top-level member's value ends here
+			}
 			i = skipSpace(b, i)
 			if len(c.stack) == 0 {
 				if i != n {
@@ -99,10 +115,15 @@ func (c *syntaxChecker) check(b []byte) (depth int, serr syntaxError, ok bool) {
 			if b[i] == ',' {
 				i = skipSpace(b, i+1)
 				if top == '{' {
-					var e syntaxError
-					if i, e = scanMember(b, i); e.why != "" {
+					k0 := i
+					k1, v0, e := scanMember(b, i)
+					if e.why != "" {
 						return depth, e, false
 					}
+					if len(c.stack) == 1 {
+						c.top = append(c.top, memberSpan{k0, k1, v0, -1})
+					}
+					i = v0
 				}
 				break
 			}
@@ -116,20 +137,21 @@ func (c *syntaxChecker) check(b []byte) (depth int, serr syntaxError, ok bool) {
 	}
 }
 
-// scanMember scans `"key" :` and the whitespace after it.
-func scanMember(b []byte, i int) (int, syntaxError) {
+// scanMember scans `"key" :` and the whitespace after it; it returns the end
+// of the key and where the value starts.
+func scanMember(b []byte, i int) (keyEnd, value int, e syntaxError) {
 	if i >= len(b) || b[i] != '"' {
-		return i, syntaxError{i, "expected a string key"}
+		return i, i, syntaxError{i, "expected a string key"}
 	}
 	end, e := scanString(b, i)
 	if e.why != "" {
-		return end, e
+		return end, end, e
 	}
 	i = skipSpace(b, end)
 	if i >= len(b) || b[i] != ':' {
-		return i, syntaxError{i, "expected ':' after an object key"}
+		return end, i, syntaxError{i, "expected ':' after an object key"}
 	}
-	return skipSpace(b, i+1), syntaxError{}
+	return end, skipSpace(b, i+1), syntaxError{}
 }
 
 func skipSpace(b []byte, i int) int {
