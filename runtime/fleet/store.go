@@ -169,6 +169,11 @@ func (s *Store) Handle(topic string, payload []byte, retained bool, atNs int64) 
 	if !ok {
 		return s.refuse(nil, reject(topic, ReasonBadField, "topic is not %s/<vehicle>/health or /status", s.cfg.TopicRoot))
 	}
+	if len(payload) == 0 {
+		// A zero-byte retained message deletes the retained one (MQTT 3.1.1
+		// §3.3.1.3); it says nothing about the vehicle.
+		return nil
+	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	v := s.vehicles[id]
