@@ -233,6 +233,8 @@ func daemonRoundTrip(t *testing.T, url string) {
 		for _, tr := range tm.Tracks {
 			want := gatesim.Tractors[0].At(float64(tm.TNs-scene.T0) * 1e-9)
 			dx, dy := tr.Pos[0]-want[0], tr.Pos[1]-want[1]
+			// 2 m: ten lidar s.d. (0.2 m, dock-post.yaml), a loose
+			// "is it the tractor" bound (common practice).
 			if tr.Status == "confirmed" && dx*dx+dy*dy < 2*2 {
 				return true
 			}
@@ -355,6 +357,7 @@ func TestDaemonSurvivesBrokerRestart(t *testing.T) {
 	watch, _, stop = session("b")
 	// updated_ns after the return: a measurement published after the
 	// restart went through the re-made subscription into a track.
+	// 3 s: the deadline issue 4 sets for resuming output.
 	m, ok := watch.await(time.Until(back.Add(3*time.Second)), freshTrack(back))
 	if !ok {
 		t.Fatalf("no freshly updated track within 3 s of the broker's return; stats %+v", d.Stats())
