@@ -150,6 +150,7 @@ type Engine struct {
 	haveHorizon   bool
 	scratch       filters.Filter
 	birthTemplate filters.Filter // pf only: the state every birth starts from
+	leanSnap      bool           // track filters are fully described by (x, S) between scans
 	egoScratch    filters.Filter
 	ws            workspace
 	solver        assign.Solver
@@ -268,6 +269,10 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 	e.mkFilter = func() (filters.Filter, error) { return newF(e.motion) }
 	if e.scratch, err = e.mkFilter(); err != nil {
 		return nil, fmt.Errorf("engine: track filter: %w", err)
+	}
+	switch e.scratch.(type) {
+	case *filters.SREKF, *filters.SRUKF:
+		e.leanSnap = true
 	}
 	if _, ok := e.scratch.(*particle.Filter); ok {
 		// A particle filter's random source is part of its state, and a
@@ -494,14 +499,14 @@ func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
 	if p < len(e.log)-1 {
 		// Rewind: back to the state just before the displaced scan.
 		e.counters.Rewinds++
-		if err := copyState(&e.st, &e.log[p+1].snap, e.mkFilter); err != nil {
+		if err := restoreLean(&e.st, &e.log[p+1].snap, e.leanSnap, e.motion.Dim(), e.mkFilter); err != nil {
 			return e.fail(err)
 		}
 		e.counters.Reprocessed += uint64(len(e.log) - 1 - p)
 	}
 	for i := p; i < len(e.log); i++ {
 		x := e.log[i]
-		if err := copyState(&x.snap, &e.st, e.mkFilter); err != nil {
+		if err := saveLean(&x.snap, &e.st, e.leanSnap, e.mkFilter); err != nil {
 			return e.fail(err)
 		}
 		e.process(x)
@@ -526,12 +531,7 @@ func (e *Engine) takeScan() *scan {
 		e.free = e.free[:n-1]
 		return sc
 	}
-	sc := &scan{}
-	if e.platformMoving {
-		f, _ := e.mkEgo() // the same constructor succeeded in New
-		sc.snap.ego = f
-	}
-	return sc
+	return &scan{}
 }
 
 // prune drops scans that fell out of the lag window (or past MaxScans);

@@ -1,6 +1,8 @@
 package engine
 
 import (
+	"errors"
+
 	"github.com/godwit-fusion/godwit/filters"
 )
 
@@ -41,29 +43,93 @@ type state struct {
 
 	ego     filters.Filter // nil on a fixed platform
 	egoInit bool
+
+	// Snapshots only: filter means and square roots, x then S per track,
+	// and the ego's (see saveLean).
+	xs    []float64
+	egoXS []float64
 }
 
-// copyState makes dst an exact copy of src, reusing dst's filters (new
-// ones are made by mk only while the pool is still growing).
-func copyState(dst, src *state, mk func() (filters.Filter, error)) error {
-	dst.recs = append(dst.recs[:0], src.recs...)
-	for len(dst.flt) < len(src.recs) {
+func ensureFilters(dst *state, n int, mk func() (filters.Filter, error)) error {
+	for len(dst.flt) < n {
 		f, err := mk()
 		if err != nil {
 			return err
 		}
 		dst.flt = append(dst.flt, f)
 	}
-	for i := range src.recs {
-		if err := dst.flt[i].CopyFrom(src.flt[i]); err != nil {
-			return err
-		}
-	}
+	return nil
+}
+
+func copyScalars(dst, src *state) {
 	dst.nextID, dst.timeNs, dst.hasTime = src.nextID, src.timeNs, src.hasTime
 	dst.trackNs, dst.egoNs = src.trackNs, src.egoNs
 	dst.egoInit = src.egoInit
-	if src.ego != nil && src.egoInit {
-		if err := dst.ego.CopyFrom(src.ego); err != nil {
+}
+
+// saveLean snapshots live into snap keeping only each filter's mean and
+// square-root covariance: between scans that is the whole state of a
+// square-root Kalman filter or UKF (Prepare is always called afresh), and
+// it is 30 floats for CTRV instead of a filter's ~8 KB of workspace. lean
+// says whether the track filters qualify; when not (a particle filter,
+// whose particles and random source are its state, or a caller's own
+// filter) whole filters are copied with CopyFrom. The ego filter, always
+// the engine's SR-UKF, is always kept lean.
+func saveLean(snap, live *state, lean bool, mk func() (filters.Filter, error)) error {
+	snap.recs = append(snap.recs[:0], live.recs...)
+	if lean {
+		snap.xs = snap.xs[:0]
+		for i := range live.recs {
+			g := live.flt[i].State()
+			snap.xs = append(snap.xs, g.X...)
+			snap.xs = append(snap.xs, g.S...)
+		}
+	} else {
+		if err := ensureFilters(snap, len(live.recs), mk); err != nil {
+			return err
+		}
+		for i := range live.recs {
+			if err := snap.flt[i].CopyFrom(live.flt[i]); err != nil {
+				return err
+			}
+		}
+	}
+	copyScalars(snap, live)
+	snap.egoXS = snap.egoXS[:0]
+	if live.ego != nil && live.egoInit {
+		g := live.ego.State()
+		snap.egoXS = append(append(snap.egoXS, g.X...), g.S...)
+	}
+	return nil
+}
+
+// restoreLean is the inverse of saveLean: live becomes the snapshot again,
+// bit for bit (Init copies x and S as they are).
+func restoreLean(live, snap *state, lean bool, n int, mk func() (filters.Filter, error)) error {
+	live.recs = append(live.recs[:0], snap.recs...)
+	if err := ensureFilters(live, len(snap.recs), mk); err != nil {
+		return err
+	}
+	for i := range snap.recs {
+		var err error
+		if lean {
+			off := i * (n + n*n)
+			err = live.flt[i].Init(snap.xs[off:off+n], snap.xs[off+n:off+n+n*n])
+		} else {
+			err = live.flt[i].CopyFrom(snap.flt[i])
+		}
+		if err != nil {
+			return err
+		}
+	}
+	copyScalars(live, snap)
+	if live.ego != nil && snap.egoInit {
+		k := len(snap.egoXS)
+		ne := 5
+		if k != ne+ne*ne {
+			return errors.New("engine: ego snapshot has the wrong size")
+		}
+		if err := live.ego.Init(snap.egoXS[:ne], snap.egoXS[ne:]); err != nil {
 			return err
 		}
 	}

@@ -317,7 +317,11 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	}
 
 	// Retire: failed confirmation, too many misses, or lost in covariance.
-	for i := T - 1; i >= 0; i-- {
+	// Survivors are compacted in one pass (keeping their order): deleting
+	// one by one would shift the table once per deletion, quadratic in a
+	// cluttered scene.
+	keep := 0
+	for i := 0; i < T; i++ {
 		rec := &st.recs[i]
 		drop := false
 		switch rec.status {
@@ -331,10 +335,16 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 			drop = true
 		}
 		if drop {
-			st.removeTrack(i)
 			e.counters.Deletions++
+			continue
 		}
+		if keep != i {
+			st.recs[keep] = st.recs[i]
+			st.flt[keep], st.flt[i] = st.flt[i], st.flt[keep] // the dropped filter becomes a spare
+		}
+		keep++
 	}
+	st.recs = st.recs[:keep]
 
 	// Birth from detections outside every birth gate.
 	for j := 0; j < D; j++ {
