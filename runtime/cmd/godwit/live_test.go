@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -232,7 +233,17 @@ func TestRecordCommand(t *testing.T) {
 		pub.pub("yard/other/ignored", p, false) // outside the filter
 		time.Sleep(5 * time.Millisecond)
 	}
-	time.Sleep(time.Second) // let the last deliveries land before the stop
+	// Written while recording, not only at the stop: at least once a
+	// second the file gains what arrived.
+	flushed := false
+	for deadline := time.Now().Add(3 * time.Second); !flushed && time.Now().Before(deadline); time.Sleep(50 * time.Millisecond) {
+		b, _ := os.ReadFile(out)
+		flushed = bytes.Count(b, []byte("\n")) > 100
+	}
+	if !flushed {
+		t.Error("nothing flushed to the recording while running")
+	}
+	time.Sleep(500 * time.Millisecond) // let the last deliveries land before the stop
 	cancel()
 	r := wait(t, res, 10*time.Second)
 	if r.code != exitOK {

@@ -69,10 +69,9 @@ and prints how many messages it recorded.`,
 			if err != nil {
 				return usageError{err}
 			}
-			// The loop below flushes once a second itself (FlushEvery −1): the
-			// writer's own flush goroutine races with Close in the
-			// transport version this was written against.
-			rw, err := transport.CreateRecording(out, transport.RecordOptions{Note: note, FlushEvery: -1})
+			// The writer flushes at least once a second (its default), so a
+			// recording cut short loses little.
+			rw, err := transport.CreateRecording(out, transport.RecordOptions{Note: note})
 			if err != nil {
 				client.Close()
 				return err
@@ -131,18 +130,12 @@ func record(ctx context.Context, client *mqtt.Client, rw *transport.RecordWriter
 			}
 		}
 	}
-	flush := time.NewTicker(time.Second) // a recording cut short loses at most this
-	defer flush.Stop()
 	for done := false; !done; {
 		select {
 		case <-ctx.Done():
 			done = true
 		case <-q.Ready():
 			drain()
-		case <-flush.C:
-			if werr == nil {
-				werr = rw.Flush()
-			}
 		}
 	}
 	// Unsubscribe by disconnecting, then keep what is already queued.
