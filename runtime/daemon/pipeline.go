@@ -1,8 +1,8 @@
 // Package daemon drives godwit's fusion engine from MQTT (Daemon) and from
 // recordings (Replay). Both feed the same Pipeline: decode, ingest, advance,
-// encode. The Pipeline reads no clock; the Daemon is the only part of godwit
-// that asks the wall clock for the time, so a replay repeats a run bit for
-// bit.
+// encode. The Pipeline reads no clock; only the Daemon gives the engine
+// wall-clock times (Replay's optional pacing waits on the wall clock but
+// hands the engine recorded times), so a replay repeats a run bit for bit.
 package daemon
 
 import (
