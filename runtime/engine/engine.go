@@ -500,6 +500,11 @@ func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
 		// Rewind: back to the state just before the displaced scan.
 		e.counters.Rewinds++
 		if err := restoreLean(&e.st, &e.log[p+1].snap, e.leanSnap, e.motion.Dim(), e.mkFilter); err != nil {
+			// Nothing was restored: take the message out again and go on
+			// from the state as it was.
+			copy(e.log[p:], e.log[p+1:])
+			e.log = e.log[:len(e.log)-1]
+			e.free = append(e.free, sc)
 			return e.fail(err)
 		}
 		e.counters.Reprocessed += uint64(len(e.log) - 1 - p)

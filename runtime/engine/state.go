@@ -106,10 +106,28 @@ func saveLean(snap, live *state, lean bool, mk func() (filters.Filter, error)) e
 // restoreLean is the inverse of saveLean: live becomes the snapshot again,
 // bit for bit (Init copies x and S as they are).
 func restoreLean(live, snap *state, lean bool, n int, mk func() (filters.Filter, error)) error {
-	live.recs = append(live.recs[:0], snap.recs...)
+	// Check everything Init will check before touching live, so that a
+	// failure leaves the live state as it was.
+	if lean {
+		for i := range snap.recs {
+			off := i * (n + n*n)
+			if err := filters.CheckSqrt(snap.xs[off+n:off+n+n*n], n); err != nil {
+				return err
+			}
+		}
+	}
+	if live.ego != nil && snap.egoInit {
+		if len(snap.egoXS) != 30 {
+			return errors.New("engine: ego snapshot has the wrong size")
+		}
+		if err := filters.CheckSqrt(snap.egoXS[5:], 5); err != nil {
+			return err
+		}
+	}
 	if err := ensureFilters(live, len(snap.recs), mk); err != nil {
 		return err
 	}
+	live.recs = append(live.recs[:0], snap.recs...)
 	for i := range snap.recs {
 		var err error
 		if lean {
@@ -124,12 +142,7 @@ func restoreLean(live, snap *state, lean bool, n int, mk func() (filters.Filter,
 	}
 	copyScalars(live, snap)
 	if live.ego != nil && snap.egoInit {
-		k := len(snap.egoXS)
-		ne := 5
-		if k != ne+ne*ne {
-			return errors.New("engine: ego snapshot has the wrong size")
-		}
-		if err := live.ego.Init(snap.egoXS[:ne], snap.egoXS[ne:]); err != nil {
+		if err := live.ego.Init(snap.egoXS[:5], snap.egoXS[5:]); err != nil {
 			return err
 		}
 	}
