@@ -38,8 +38,8 @@ func FuzzReadTruth(f *testing.F) {
 	})
 }
 
-// FuzzReadTracks: any input gives messages in non-decreasing t_ns, or an
-// error; scoring them against a fixed truth never fails.
+// FuzzReadTracks: any input gives messages or an error, never a panic;
+// scoring them against a fixed truth never fails.
 func FuzzReadTracks(f *testing.F) {
 	f.Add([]byte(`{"v":1,"vehicle":"x","seq":1,"t_ns":5,"frame":"site","tracks":[{"id":1,"status":"confirmed","pos":[null,1],"vel":[0,0],"pos_cov":[1,0,0,1],"model":"cv","state":[],"state_cov":[],"updated_ns":5,"hits":1,"misses":0}],"ego":{"pos":[0,0],"yaw":0}}`))
 	f.Fuzz(func(t *testing.T, b []byte) {
@@ -52,9 +52,6 @@ func FuzzReadTracks(f *testing.F) {
 			t.Fatal(err)
 		}
 		for i := range msgs {
-			if i > 0 && msgs[i].TNs < msgs[i-1].TNs {
-				t.Fatal("t_ns going back")
-			}
 			if err := e.AddTracks(&msgs[i]); err != nil {
 				t.Fatal(err)
 			}

@@ -72,8 +72,9 @@ func ReadTruth(r io.Reader) ([]TruthLine, error) {
 // ReadTracks reads a tracks file (one v1 tracks message a line, as the
 // replay command writes it). A track whose pos is null (the encoder's
 // spelling of a non-finite number) is kept with NaN there and is left out
-// of scoring by the Evaluator, which counts it. Messages must come in
-// non-decreasing t_ns; state and state_cov are not kept.
+// of scoring by the Evaluator, which counts it. Messages are returned in
+// file order (see Evaluator.AddTracks on the final message); state and
+// state_cov are not kept.
 func ReadTracks(r io.Reader) ([]transport.TracksMsg, error) {
 	var out []transport.TracksMsg
 	var p fastjson.Parser
@@ -85,9 +86,6 @@ func ReadTracks(r io.Reader) ([]transport.TracksMsg, error) {
 		m, msg := parseTracks(v)
 		if msg != "" {
 			return &LineError{"tracks", n, msg}
-		}
-		if k := len(out); k > 0 && m.TNs < out[k-1].TNs {
-			return &LineError{"tracks", n, fmt.Sprintf("t_ns %d is before the previous message's %d", m.TNs, out[k-1].TNs)}
 		}
 		out = append(out, m)
 		return nil

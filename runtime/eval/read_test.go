@@ -93,7 +93,7 @@ func TestReadErrors(t *testing.T) {
 	tcases := []struct{ in, want string }{
 		{`{"v":2,"t_ns":1,"frame":"site","tracks":[]}`, "v must be 1"},
 		{`{"v":1,"t_ns":1,"frame":"body","tracks":[]}`, `frame "body"`},
-		{`{"v":1,"t_ns":2,"frame":"site","tracks":[]}` + "\n" + `{"v":1,"t_ns":1,"frame":"site","tracks":[]}`, "tracks line 2: t_ns 1 is before"},
+		{`{"v":1,"t_ns":2,"frame":"site","tracks":[]}` + "\n" + `{"v":1,"t_ns":1.5,"frame":"site","tracks":[]}`, "tracks line 2: t_ns is not an integer"},
 		{`{"v":1,"t_ns":1,"frame":"site","tracks":[{"id":-1}]}`, "tracks[0].id"},
 		{`{"v":1,"t_ns":1,"frame":"site","tracks":[{"id":1,"status":"confirmed","pos":[0,0],"vel":[0,0],"pos_cov":[1,0,0]}]}`, "pos_cov must be an array of 4"},
 	}
