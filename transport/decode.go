@@ -420,6 +420,11 @@ func vector(i int, field string, b []byte, at, n int, out []float64) (int, error
 			break
 		}
 		if c := b[p]; j < n && err == nil && (c == '-' || c >= '0' && c <= '9') {
+			if f, end, ok := exactFloatAt(b, p); ok {
+				out[j] = f
+				p = end
+				continue
+			}
 			end, _ := scanNumber(b, p)
 			f, r, msg := number(b[p:end])
 			if msg != "" {
@@ -473,44 +478,52 @@ var pow10 = [...]float64{1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10,
 // numbers accurately", the fast path). Sensor data nearly always takes it;
 // anything else reports false and goes to strconv.
 func exactFloat(v []byte) (float64, bool) {
-	i, neg := 0, false
-	if v[0] == '-' {
-		neg, i = true, 1
+	f, end, ok := exactFloatAt(v, 0)
+	return f, ok && end == len(v)
+}
+
+// exactFloatAt is exactFloat for the valid number starting at b[i]; it also
+// returns where the number ends.
+func exactFloatAt(b []byte, i int) (float64, int, bool) {
+	neg := false
+	if b[i] == '-' {
+		neg = true
+		i++
 	}
 	var mant uint64
 	digits, exp := 0, 0
-	for ; i < len(v) && v[i] >= '0' && v[i] <= '9'; i++ {
-		if mant == 0 && v[i] == '0' {
+	for ; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
+		if mant == 0 && b[i] == '0' {
 			continue
 		}
-		mant = mant*10 + uint64(v[i]-'0')
+		mant = mant*10 + uint64(b[i]-'0')
 		if digits++; digits > 15 {
-			return 0, false
+			return 0, 0, false
 		}
 	}
-	if i < len(v) && v[i] == '.' {
-		for i++; i < len(v) && v[i] >= '0' && v[i] <= '9'; i++ {
+	if i < len(b) && b[i] == '.' {
+		for i++; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
 			exp--
-			if mant == 0 && v[i] == '0' {
+			if mant == 0 && b[i] == '0' {
 				continue
 			}
-			mant = mant*10 + uint64(v[i]-'0')
+			mant = mant*10 + uint64(b[i]-'0')
 			if digits++; digits > 15 {
-				return 0, false
+				return 0, 0, false
 			}
 		}
 	}
-	if i < len(v) { // exponent
+	if i < len(b) && (b[i] == 'e' || b[i] == 'E') {
 		i++
 		eneg := false
-		if v[i] == '+' || v[i] == '-' {
-			eneg = v[i] == '-'
+		if b[i] == '+' || b[i] == '-' {
+			eneg = b[i] == '-'
 			i++
 		}
 		e := 0
-		for ; i < len(v); i++ {
-			if e = e*10 + int(v[i]-'0'); e > 1000 {
-				return 0, false
+		for ; i < len(b) && b[i] >= '0' && b[i] <= '9'; i++ {
+			if e = e*10 + int(b[i]-'0'); e > 1000 {
+				return 0, 0, false
 			}
 		}
 		if eneg {
@@ -523,7 +536,7 @@ func exactFloat(v []byte) (float64, bool) {
 	switch {
 	case mant == 0:
 	case exp < -22 || exp > 22:
-		return 0, false
+		return 0, 0, false
 	case exp < 0:
 		f /= pow10[-exp]
 	default:
@@ -532,7 +545,7 @@ func exactFloat(v []byte) (float64, bool) {
 	if neg {
 		f = -f
 	}
-	return f, true
+	return f, i, true
 }
 
 // kindOf names the JSON type of a valid value, for error messages.
