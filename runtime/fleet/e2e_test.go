@@ -307,6 +307,10 @@ type scriptedVehicle struct {
 	c              *mqtt.Client
 	id, healthTope string
 	tNs            atomic.Int64
+
+	mu     sync.Mutex
+	state  string
+	alerts []transport.Alert
 }
 
 func newScriptedVehicle(t *testing.T, url, root, id string, will bool) *scriptedVehicle {
@@ -331,19 +335,53 @@ func newScriptedVehicle(t *testing.T, url, root, id string, will bool) *scripted
 	return v
 }
 
+// beat re-publishes the latest report every period, as the daemon does
+// once a second, until the returned stop is called.
+func (v *scriptedVehicle) beat(period time.Duration) (stop func()) {
+	done := make(chan struct{})
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		tick := time.NewTicker(period)
+		defer tick.Stop()
+		for {
+			select {
+			case <-done:
+				return
+			case <-tick.C:
+				v.mu.Lock()
+				st, al := v.state, v.alerts
+				v.mu.Unlock()
+				if st != "" {
+					_ = v.publish(st, al)
+				}
+			}
+		}
+	}()
+	return sync.OnceFunc(func() { close(done); wg.Wait() })
+}
+
 func (v *scriptedVehicle) report(state string, alerts ...transport.Alert) {
 	v.t.Helper()
+	v.mu.Lock()
+	v.state, v.alerts = state, alerts
+	v.mu.Unlock()
+	if err := v.publish(state, alerts); err != nil {
+		v.t.Fatal(err)
+	}
+}
+
+func (v *scriptedVehicle) publish(state string, alerts []transport.Alert) error {
 	m := transport.HealthMsg{V: 1, Vehicle: v.id, TNs: v.tNs.Add(int64(200 * time.Millisecond)), State: state, Alerts: alerts,
 		Sensors: []transport.SensorHealth{{Name: "front_lidar", RateHz: 10, AgeMS: 40, NISOK: true},
 			{Name: "rear_camera", RateHz: 15, AgeMS: 30, NISOK: true}},
 		LatencyMS: transport.Latency{P50: 1.1, P99: 3.9}}
 	b, err := transport.AppendHealth(nil, &m)
 	if err != nil {
-		v.t.Fatal(err)
+		return err
 	}
-	if err := v.c.Publish(v.healthTope, b, 1, true); err != nil {
-		v.t.Fatal(err)
-	}
+	return v.c.Publish(v.healthTope, b, 1, true)
 }
 
 // The degraded path of the end-to-end check, with v1 health messages

@@ -96,7 +96,7 @@ function drawVehicles(changed) {
 }
 
 function eventText(e) {
-  if (e.event === "state") return (e.from || "new") + " → " + e.to + (e.detail ? " (" + e.detail + ")" : "");
+  if (e.event === "state") return (e.from ? e.from + " → " + e.to : "appeared, " + e.to) + (e.detail ? " (" + e.detail + ")" : "");
   const what = e.code + (e.sensor ? " " + e.sensor : "") + (e.track ? " track " + e.track : "");
   return (e.event === "raised" ? "raised " : "cleared ") + what + (e.event === "raised" && e.detail ? ": " + e.detail : "");
 }
@@ -104,7 +104,7 @@ function eventText(e) {
 function drawTimeline() {
   const ol = document.getElementById("timeline");
   ol.replaceChildren(...events.slice().reverse().map((e) => {
-    const li = el("li", e.event);
+    const li = el("li", "ev-" + e.event);
     li.appendChild(el("time", "", clock(e.at_ns)));
     li.appendChild(el("span", "who", e.vehicle));
     li.appendChild(document.createTextNode(eventText(e)));
@@ -112,11 +112,19 @@ function drawTimeline() {
   }));
 }
 
+function alertKey(v) { return v.alerts.map((a) => a.code + "/" + (a.sensor || "") + "/" + (a.track || 0)).join(","); }
+
 function apply(kind, data) {
   offsetMs = data.now_ns / 1e6 - Date.now();
   const changed = new Set();
   if (kind === "snapshot") { vehicles.clear(); events = []; }
-  for (const v of data.vehicles) { vehicles.set(v.vehicle, v); changed.add(v.vehicle); }
+  for (const v of data.vehicles) {
+    // Highlight a row only when what a person watches changed (state or
+    // alerts), not on every once-a-second report.
+    const old = vehicles.get(v.vehicle);
+    if (!old || old.state !== v.state || alertKey(old) !== alertKey(v)) changed.add(v.vehicle);
+    vehicles.set(v.vehicle, v);
+  }
   events = events.concat(data.events).slice(-KEEP_EVENTS);
   drawVehicles(kind === "update" ? changed : null);
   drawTimeline();
