@@ -306,6 +306,10 @@ func (e *Evaluator) setMetrics(ep *Epoch, truth, est [][2]float64) error {
 	ep.GOSPA, ep.Loc = r.Distance, r.Localisation
 	ep.Missed, ep.False = r.Missed, r.False
 	ep.MissTerm, ep.FalseTerm = half*float64(r.Missed), half*float64(r.False)
+	if e.opt.OSPAC == e.opt.C {
+		ep.OSPA = ospaFrom(r, len(truth), len(est), e.opt.C, e.opt.P) // same assignment problem
+		return nil
+	}
 	ep.OSPA, err = e.ospa(truth, est)
 	return err
 }
@@ -322,20 +326,25 @@ func (e *Evaluator) setMetrics(ep *Epoch, truth, est [][2]float64) error {
 // bracket is Localisation + c^p·(k + n − m)
 // = Localisation + c^p·(Missed + False + n − m)/2.
 func (e *Evaluator) ospa(truth, est [][2]float64) (float64, error) {
-	m, n := len(truth), len(est)
-	if m > n {
-		m, n = n, m
-	}
-	if n == 0 {
+	if len(truth) == 0 && len(est) == 0 {
 		return 0, nil
 	}
 	r, err := e.o.Eval(truth, est)
 	if err != nil {
 		return 0, err
 	}
-	cp := math.Pow(e.opt.OSPAC, e.opt.P)
+	return ospaFrom(r, len(truth), len(est), e.opt.OSPAC, e.opt.P), nil
+}
+
+// ospaFrom turns a GOSPA (α = 2) result with cut-off c into OSPA (see ospa).
+func ospaFrom(r gospa.Result, nx, ny int, c, p float64) float64 {
+	m, n := min(nx, ny), max(nx, ny)
+	if n == 0 {
+		return 0
+	}
+	cp := math.Pow(c, p)
 	sum := r.Localisation + cp*float64(r.Missed+r.False+n-m)/2
-	return math.Pow(sum/float64(n), 1/e.opt.P), nil
+	return math.Pow(sum/float64(n), 1/p)
 }
 
 // match pairs true objects with tracks for RMSE, NEES, id switches,
@@ -626,4 +635,20 @@ func sortedCopy(v []float64) []float64 {
 	s := append([]float64(nil), v...)
 	sort.Float64s(s)
 	return s
+}
+
+// Score is the common case: an Evaluator fed every tracks message of a
+// replay in file order. Add detections, NIS and latency samples to it
+// before asking for the Summary.
+func Score(truth []TruthLine, tracks []transport.TracksMsg, opt Options) (*Evaluator, error) {
+	e, err := New(truth, opt)
+	if err != nil {
+		return nil, err
+	}
+	for i := range tracks {
+		if err := e.AddTracks(&tracks[i]); err != nil {
+			return nil, err
+		}
+	}
+	return e, nil
 }

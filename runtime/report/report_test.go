@@ -77,7 +77,7 @@ func checkReport(t *testing.T, dir string, files []string) {
 
 // synthetic is a small made-up scene: one object walking east, a track a
 // little off it, two sensors' NIS, latency samples.
-func synthetic(t *testing.T) *Input {
+func synthetic(t testing.TB) *Input {
 	t.Helper()
 	const t0 = int64(1_772_438_400_000_000_000)
 	var truth []eval.TruthLine
