@@ -131,6 +131,7 @@ func (r *renderer) planView() (*plot.Plot, error) {
 	if math.IsInf(b.x0, 0) {
 		b = box{-10, 10, -10, 10}
 	}
+	b.y1 += 0.1 * math.Max(b.y1-b.y0, 10) // room for the legend above the paths
 	equalAspect(p, b, 8.1, 7.1)
 
 	var err error
