@@ -5,6 +5,7 @@ import (
 	"context"
 	"math"
 	"os"
+	"path/filepath"
 	"testing"
 	"time"
 
@@ -154,27 +155,40 @@ func addNISAndLatency(t *testing.T, cfg *configs.Config, out *scenario.Output, e
 	}
 }
 
-// End to end: 20 s of the campus-shuttle scenario. Thresholds: the tracks'
-// mean GOSPA below half that of the best sensor's raw detections (the
-// point of fusing them), and the position NEES mean within [0.5, 6] for a
-// 2-dimensional error (expected 2 when consistent; the band allows the
-// model mismatch of a CTRV tracker on pedestrians turning at path ends,
-// Bar-Shalom, Li & Kirubarajan 2001 §5.4 on filter consistency).
+// End to end: 20 s of two shipped scenarios, simulated, replayed and
+// scored. Thresholds: the tracks' mean GOSPA under half that of the best
+// sensor's raw detections (the point of fusing them), and the position
+// NEES mean within [0.5, 6] for a 2-dimensional error: expected 2 when
+// consistent (Bar-Shalom, Li & Kirubarajan 2001 §5.4); the band is wide
+// because a moving platform adds its own pose error, which the position
+// covariance carries only to first order. On "crossing" (two targets pass
+// 1 m apart, the association test the scenario is made for) no id may
+// switch; campus-shuttle must estimate its own position to under 3 m RMSE
+// (GNSS s.d. 1.2 m per axis).
 func TestEndToEnd(t *testing.T) {
 	if testing.Short() {
-		t.Skip("simulates and replays 20 s of a scenario")
+		t.Skip("simulates and replays 20 s of two scenarios")
 	}
-	r := simulateAndScore(t, "campus-shuttle", 20)
+	for _, name := range []string{"campus-shuttle", "crossing"} {
+		t.Run(name, func(t *testing.T) { endToEnd(t, name) })
+	}
+}
+
+func endToEnd(t *testing.T, name string) {
+	r := simulateAndScore(t, name, 20)
 	s := r.ev.Summary()
 	best := math.Inf(1)
 	for _, b := range s.Baseline {
 		best = math.Min(best, float64(b.Mean))
 		t.Logf("baseline %s: %d scans, GOSPA %.3g", b.Sensor, b.Scans, float64(b.Mean))
 	}
-	js, _ := s.JSON()
-	t.Logf("summary: %s", js)
-	if s.Epochs < 300 {
-		t.Fatalf("%d epochs scored, want ≥ 300 (20 s at 20 Hz)", s.Epochs)
+	t.Logf("tracks: GOSPA %.3g, RMSE %.3g, NEES %.3g (%.0f%% of epochs inside), switches %d, fragmentations %d",
+		float64(s.GOSPA.Mean), float64(s.PositionRMSE), float64(s.NEES.Mean), 100*float64(s.NEES.InsideFraction),
+		s.IDSwitches, s.Fragmentations)
+	// One epoch per output period (output.rate_hz), all but the first
+	// seconds at least.
+	if want := int(15 * r.sc.Config.Output.RateHz); s.Epochs < want {
+		t.Fatalf("%d epochs scored, want ≥ %d (15 s at output.rate_hz)", s.Epochs, want)
 	}
 	if g := float64(s.GOSPA.Mean); !(g < best/2) {
 		t.Errorf("tracks GOSPA %.3g, best raw detections %.3g: want under half", g, best)
@@ -182,16 +196,25 @@ func TestEndToEnd(t *testing.T) {
 	if n := float64(s.NEES.Mean); !(n >= 0.5 && n <= 6) {
 		t.Errorf("NEES mean %.3g outside [0.5, 6]", n)
 	}
-	if s.Ego == nil || !(float64(s.Ego.PosRMSE) < 3) {
-		t.Errorf("ego %+v, want a position RMSE under 3 m (GNSS s.d. 1.2 m per axis)", s.Ego)
+	switch name {
+	case "campus-shuttle":
+		if s.Ego == nil || !(float64(s.Ego.PosRMSE) < 3) {
+			t.Errorf("ego %+v, want a position RMSE under 3 m", s.Ego)
+		}
+	case "crossing":
+		if s.IDSwitches != 0 {
+			t.Errorf("%d id switches at the crossing, want 0", s.IDSwitches)
+		}
 	}
 
 	dir := os.Getenv("GODWIT_REPORT_DIR")
 	if dir == "" {
 		dir = t.TempDir()
+	} else {
+		dir = filepath.Join(dir, name)
 	}
 	in := FromEvaluator(r.ev, r.truth, r.tracks)
-	in.Title = "campus-shuttle, 20 s"
+	in.Title = name + ", 20 s"
 	in.Run = []Field{{"scenario", r.sc.Name}, {"messages replayed", fmtUint(r.sum.Messages)},
 		{"tracks confirmed", fmtUint(r.sum.TracksConfirmed)},
 		{"latency samples", "engine processing time per arrival, measured by the test"}}

@@ -48,6 +48,26 @@ func (s *pathSet) bounds(b *box) {
 	}
 }
 
+// fixedPoint reports whether every point of the set is the same one (a
+// fixed platform's truth), and which.
+func (s *pathSet) fixedPoint() (xy, bool) {
+	var first xy
+	n := 0
+	for _, id := range s.order {
+		for _, run := range s.runs[id] {
+			for _, p := range run {
+				if n == 0 {
+					first = p
+				} else if math.Abs(p.X-first.X) > 1e-6 || math.Abs(p.Y-first.Y) > 1e-6 {
+					return xy{}, false
+				}
+				n++
+			}
+		}
+	}
+	return first, n > 0
+}
+
 type box struct{ x0, x1, y0, y1 float64 }
 
 func newBox() box { return box{math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)} }
@@ -136,14 +156,24 @@ func (r *renderer) planView() (*plot.Plot, error) {
 
 	var err error
 	legendTruth, legendTrack := false, false
-	for _, id := range ego.order {
-		for _, run := range ego.runs[id] {
-			if err = addLine(p, run, lineStyle(faint, 7, false), ""); err != nil {
+	if post, fixed := ego.fixedPoint(); fixed {
+		sc, err := plotter.NewScatter(plotter.XYs{post})
+		if err != nil {
+			return nil, err
+		}
+		sc.GlyphStyle = draw.GlyphStyle{Color: ink, Radius: vg.Points(4), Shape: draw.BoxGlyph{}}
+		p.Add(sc)
+		p.Legend.Add("platform (fixed)", sc)
+	} else {
+		for _, id := range ego.order {
+			for _, run := range ego.runs[id] {
+				if err = addLine(p, run, lineStyle(faint, 7, false), ""); err != nil {
+					return nil, err
+				}
+			}
+			if err = addLine(p, nil, lineStyle(faint, 7, false), "ego path (truth)"); err != nil {
 				return nil, err
 			}
-		}
-		if err = addLine(p, nil, lineStyle(faint, 7, false), "ego path (truth)"); err != nil {
-			return nil, err
 		}
 	}
 	for _, id := range truth.order {
