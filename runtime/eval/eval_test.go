@@ -438,3 +438,17 @@ func TestSummaryJSON(t *testing.T) {
 		t.Errorf("round trip: %v %v", err, back.GOSPA.Mean)
 	}
 }
+
+// The text table carries the values of a hand-worked case: the one missed
+// target of TestOneMissedTarget (GOSPA √50 = 7.07, missed part 50).
+func TestSummaryString(t *testing.T) {
+	truth := []TruthLine{{TNs: ms(0), Objects: []TruthObject{obj("p1", 3, 4)}}}
+	e := mustNew(t, truth, Options{C: 10})
+	add(t, e, msg(ms(0)))
+	got := e.Summary().String()
+	for _, want := range []string{"GOSPA mean             7.07 m", "missed 50, false 0", "position RMSE          — m over 0 pairs", "(0 confirmed, 1 never)"} {
+		if !strings.Contains(got, want) {
+			t.Errorf("table lacks %q:\n%s", want, got)
+		}
+	}
+}

@@ -2,8 +2,10 @@ package eval
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"strconv"
+	"strings"
 
 	"gonum.org/v1/gonum/stat"
 	"gonum.org/v1/gonum/stat/distuv"
@@ -281,4 +283,47 @@ func div(a, b float64) Num {
 		return Num(math.NaN())
 	}
 	return Num(a / b)
+}
+
+// String is the summary as a short text table for a terminal (the demo and
+// replay commands print it); "—" marks an undefined value.
+func (s *Summary) String() string {
+	var b strings.Builder
+	row := func(name, value string) { fmt.Fprintf(&b, "%-22s %s\n", name, value) }
+	g := s.GOSPA
+	row("epochs scored", fmt.Sprintf("%d (%d without truth, %d out of order)", s.Epochs, s.EpochsSkipped, s.OutOfOrder))
+	row("objects / track ids", fmt.Sprintf("%d / %d", s.TruthObjects, s.TrackIDs))
+	row("GOSPA mean", fmt.Sprintf("%s m  (parts, m^%g: localisation %s, missed %s, false %s)",
+		g.Mean.text(), s.Params.P, g.Loc.text(), g.Missed.text(), g.False.text()))
+	for _, bl := range s.Baseline {
+		row("  raw "+bl.Sensor, bl.Mean.text()+" m")
+	}
+	row("OSPA mean", s.OSPA.text()+" m")
+	row("position RMSE", fmt.Sprintf("%s m over %d pairs", s.PositionRMSE.text(), s.MatchedPairs))
+	row("NEES mean", fmt.Sprintf("%s (expected 2; %s of epochs inside 95%%)", s.NEES.Mean.text(), s.NEES.InsideFraction.percent()))
+	row("id switches / frags", fmt.Sprintf("%d / %d", s.IDSwitches, s.Fragmentations))
+	row("time to confirm", fmt.Sprintf("%s s mean (%d confirmed, %d never)", s.TimeToConfirm.Mean.text(), s.TimeToConfirm.Confirmed, s.TimeToConfirm.Never))
+	if e := s.Ego; e != nil {
+		row("ego position RMSE", fmt.Sprintf("%s m (max %s m, heading %s°)", e.PosRMSE.text(), e.PosMax.text(), e.YawRMSDeg.text()))
+	}
+	if l := s.Latency; l != nil {
+		row("latency p50 / p99", fmt.Sprintf("%s / %s ms (%d samples)", l.P50.text(), l.P99.text(), l.Samples))
+	}
+	return b.String()
+}
+
+func (n Num) text() string {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return "—"
+	}
+	return strconv.FormatFloat(f, 'g', 3, 64)
+}
+
+func (n Num) percent() string {
+	f := float64(n)
+	if math.IsNaN(f) {
+		return "—"
+	}
+	return strconv.FormatFloat(100*f, 'f', 0, 64) + "%"
 }
