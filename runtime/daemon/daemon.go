@@ -6,12 +6,14 @@ import (
 	"math"
 	"sort"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/godwit-fusion/godwit/configs"
 	"github.com/godwit-fusion/godwit/runtime/engine"
 	"github.com/godwit-fusion/godwit/transport"
 	"github.com/godwit-fusion/godwit/transport/mqtt"
+	"github.com/prometheus/client_golang/prometheus"
 	"go.uber.org/zap"
 )
 
@@ -69,6 +71,13 @@ type Daemon struct {
 	mu   sync.Mutex
 	snap Stats
 
+	// Read by the HTTP endpoint's goroutines.
+	metrics     *metrics
+	liveClient  atomic.Pointer[mqtt.Client]
+	stopping    atomic.Bool
+	metricsAddr atomic.Pointer[string]
+	ep          *endpoint
+
 	// Engine goroutine only.
 	client        *mqtt.Client
 	in            transport.Inbound
@@ -90,7 +99,8 @@ type Daemon struct {
 // processed messages: from the arrival the MQTT callback stamped to the
 // publication of the first tracks message that includes the message.
 type latencies struct {
-	pending []int64 // arrival times processed since the last tracks message
+	obs     prometheus.Observer // the latency histogram, in seconds
+	pending []int64             // arrival times processed since the last tracks message
 	ring    [latencyWindow]float64
 	n, next int
 	scratch [latencyWindow]float64
@@ -107,6 +117,9 @@ func (l *latencies) arrived(arrivalNs int64) {
 func (l *latencies) published(nowNs int64) {
 	for _, a := range l.pending {
 		l.ring[l.next] = float64(nowNs-a) * 1e-6
+		if l.obs != nil {
+			l.obs.Observe(float64(nowNs-a) * 1e-9)
+		}
 		l.next = (l.next + 1) % latencyWindow
 		l.n = min(l.n+1, latencyWindow)
 	}
@@ -151,13 +164,25 @@ func New(opts Options) (*Daemon, error) {
 	if maxBytes <= 0 {
 		maxBytes = transport.DefaultMaxPayloadBytes
 	}
-	return &Daemon{
+	d := &Daemon{
 		opts: opts, cfg: cfg, log: opts.Logger, pipe: pipe,
 		queue:  transport.NewQueue(max(cfg.Limits.QueueLength, 1), 1024, maxBytes),
 		qos:    byte(cfg.Broker.QoS),
 		events: make(chan mqtt.Event, 64),
 		lat:    latencies{pending: make([]int64, 0, 4096)},
-	}, nil
+	}
+	d.metrics = newMetrics(d)
+	d.lat.obs = d.metrics.latency
+	return d, nil
+}
+
+// mqttStats reads the client's counters (zero before Run); safe from any
+// goroutine.
+func (d *Daemon) mqttStats() mqtt.Stats {
+	if c := d.liveClient.Load(); c != nil {
+		return c.Stats()
+	}
+	return mqtt.Stats{}
 }
 
 // Stats returns the counters as of the engine goroutine's last step.
@@ -199,6 +224,11 @@ var closed = func() chan struct{} { c := make(chan struct{}); close(c); return c
 // it processes what is queued, publishes the last output and health,
 // announces "offline" and disconnects. It returns nil after a graceful
 // stop and an error only when it could not start.
+//
+// With metrics.listen set, Run also serves /metrics, /healthz and /readyz
+// there until it returns. An address that cannot be bound is logged as an
+// error and the daemon runs on without the endpoint: the fused tracks
+// matter more than their metrics.
 func (d *Daemon) Run(ctx context.Context) error {
 	client, err := mqtt.New(d.clientOptions())
 	if err != nil {
@@ -209,6 +239,18 @@ func (d *Daemon) Run(ctx context.Context) error {
 		if err := client.Subscribe(f, d.qos, d.queue); err != nil {
 			client.Close()
 			return err
+		}
+	}
+	d.liveClient.Store(client)
+	if addr := d.cfg.Metrics.Listen; addr != "" {
+		if ep, err := startEndpoint(addr, d); err != nil {
+			d.log.Error("metrics endpoint not started; running without /metrics, /healthz and /readyz",
+				zap.String("metrics.listen", addr), zap.Error(err))
+		} else {
+			d.ep = ep
+			a := ep.ln.Addr().String()
+			d.metricsAddr.Store(&a)
+			d.log.Info("metrics endpoint listening", zap.String("addr", a))
 		}
 	}
 	client.Start()
@@ -249,6 +291,7 @@ func (d *Daemon) Run(ctx context.Context) error {
 
 // stop is the graceful end: drain, last output, offline, disconnect.
 func (d *Daemon) stop() {
+	d.stopping.Store(true)
 	// One queue's worth is everything queued at the moment of the stop;
 	// what a flood adds after that is not waited for.
 	d.drain(d.queue.Cap())
@@ -259,6 +302,10 @@ func (d *Daemon) stop() {
 	d.publishHealth(now)
 	d.client.Close() // publishes "offline" (retained) while connected
 	d.snapshot()
+	if d.ep != nil {
+		d.metricsAddr.Store(nil)
+		d.ep.shutdown()
+	}
 	d.log.Info("godwit daemon stopped", zap.Uint64("messages", d.pipe.Stats().Messages))
 }
 
@@ -270,7 +317,9 @@ func (d *Daemon) drain(limit int) bool {
 		if !d.queue.Pop(&d.in) {
 			return false
 		}
+		t0 := time.Now()
 		err := d.pipe.Handle(d.in.Topic, d.in.Payload, d.in.ArrivalNs)
+		d.metrics.handled(d.pipe.last, time.Since(t0))
 		if err == nil {
 			d.lat.arrived(d.in.ArrivalNs)
 			if d.pipe.PerScan() {
@@ -282,18 +331,26 @@ func (d *Daemon) drain(limit int) bool {
 }
 
 func (d *Daemon) advance(nowNs int64) {
-	if b, ok := d.pipe.Advance(nowNs); ok && d.publish(d.cfg.Output.TracksTopic, b, false) {
+	t0 := time.Now()
+	b, ok := d.pipe.Advance(nowNs)
+	if !ok {
+		return
+	}
+	d.metrics.tracksOut(d.pipe.LastTracks(), time.Since(t0))
+	if d.publish(kindTracks, d.cfg.Output.TracksTopic, b, false) {
 		d.lat.published(time.Now().UnixNano())
 	}
 }
 
-func (d *Daemon) publish(topic string, b []byte, retain bool) bool {
+func (d *Daemon) publish(kind int, topic string, b []byte, retain bool) bool {
 	err := d.client.Publish(topic, b, d.qos, retain)
 	if err == nil {
 		d.published++
+		d.metrics.published[kind].Inc()
 		return true
 	}
 	d.publishErrors++
+	d.metrics.publishErrors[kind].Inc()
 	// A timed-out publish may still be queued inside the MQTT library with
 	// our buffer; never write into that buffer again.
 	d.pipe.releaseBuffers()
@@ -323,11 +380,16 @@ func (d *Daemon) publishHealth(now time.Time) {
 			SinceNs: d.overflowAt.UnixNano(),
 			Detail:  fmt.Sprintf("%d message(s) dropped, oldest first: the engine fell behind the input", d.lastDropped)})
 	}
-	if !d.client.Connected() {
+	// Evaluated even while disconnected, so the health metrics stay
+	// current; the message itself waits for the broker.
+	connected := d.client.Connected()
+	d.pipe.latency = d.lat.summary()
+	b := d.pipe.Health(now.UnixNano(), d.alerts)
+	d.metrics.healthOut(d.pipe.health.State, len(d.pipe.health.Alerts), connected)
+	if !connected {
 		return // nothing to publish to; the next health after reconnect reports it
 	}
-	d.pipe.latency = d.lat.summary()
-	d.publish(d.cfg.Output.HealthTopic, d.pipe.Health(now.UnixNano(), d.alerts), true)
+	d.publish(kindHealth, d.cfg.Output.HealthTopic, b, true)
 }
 
 func (d *Daemon) onEvent(e mqtt.Event) {
@@ -363,6 +425,7 @@ func (d *Daemon) snapshot() {
 	if d.client != nil {
 		s.MQTT = d.client.Stats()
 	}
+	d.metrics.sensorCounters(d.pipe.Engine())
 	d.mu.Lock()
 	d.snap = s
 	d.mu.Unlock()

@@ -102,6 +102,8 @@ func liveConfig(t *testing.T, url string) *configs.Config {
 	cfg.Output.TracksTopic = prefix + "/tracks"
 	cfg.Output.HealthTopic = prefix + "/health"
 	cfg.Output.StatusTopic = prefix + "/status"
+	// Port 0: a free port each, so daemons can run side by side.
+	cfg.Metrics.Listen = "127.0.0.1:0"
 	return cfg
 }
 

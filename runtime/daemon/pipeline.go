@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"github.com/godwit-fusion/godwit/configs"
+	"github.com/godwit-fusion/godwit/filters/geo"
 	"github.com/godwit-fusion/godwit/runtime/engine"
 	"github.com/godwit-fusion/godwit/transport"
 	"go.uber.org/zap"
@@ -52,6 +53,7 @@ type Pipeline struct {
 
 	confirmed map[uint64]struct{}
 	latency   transport.Latency // the daemon's wall-clock measurement; zero in replay
+	last      handled           // what Handle did with the latest message
 	log       *zap.Logger
 	limiter   rejectLimiter
 }
@@ -127,12 +129,14 @@ func (p *Pipeline) RatePeriodNs() int64 {
 func (p *Pipeline) Handle(topic string, payload []byte, arrivalNs int64) error {
 	p.stats.Messages++
 	sensor := p.sensorOf(topic)
+	p.last = handled{sensor: sensor, outcome: outcomeOtherTopic}
 	if sensor == notListened {
 		p.stats.OtherTopic++
 		return errOtherTopic
 	}
 	if err := p.dec.Decode(payload, arrivalNs, &p.meas); err != nil {
 		reason, _ := transport.ReasonOf(err)
+		p.last.outcome = int(reason)
 		p.stats.Rejected[reason]++
 		// The payload cannot be trusted to name its sensor, but a topic
 		// only one sensor uses does (−1: shared topic, count by reason only).
@@ -140,18 +144,78 @@ func (p *Pipeline) Handle(topic string, payload []byte, arrivalNs int64) error {
 		p.limiter.note(p.log, topic, reason.String(), err, arrivalNs)
 		return err
 	}
+	// Decoded: the payload named a configured sensor.
+	p.last.sensor = p.meas.SensorIdx
 	err := p.eng.Ingest(&p.meas, arrivalNs)
 	switch {
 	case err == nil:
 		p.stats.Accepted++
+		p.last.outcome = outcomeAccepted
 	case errors.Is(err, engine.ErrLate):
 		p.stats.Accepted++
 		p.stats.LateDropped++
+		p.last.outcome = outcomeLate
 	default:
 		p.stats.Refused++
+		p.last.outcome = engineReason(err)
 		p.limiter.note(p.log, topic, "engine", err, arrivalNs)
 	}
 	return err
+}
+
+// handled is what Handle did with one message, for the daemon's metrics:
+// the sensor it is attributed to (−1 when it cannot be: a rejected message
+// on a topic several sensors share) and the outcome, either one of the
+// outcome constants or an index into rejectReasons.
+type handled struct {
+	sensor  int
+	outcome int
+}
+
+const (
+	outcomeAccepted   = -1
+	outcomeLate       = -2
+	outcomeOtherTopic = -3
+)
+
+// rejectReasons are the reason label values of the rejection metric: the
+// decoder's (transport.Reason, in its order, so a Reason is its own index)
+// then the engine's own, the same codes as the health message's
+// counters.rejected.
+var rejectReasons = func() []string {
+	r := make([]string, 0, transport.NumReasons+3)
+	for i := 0; i < transport.NumReasons; i++ {
+		r = append(r, transport.Reason(i).String())
+	}
+	return append(r, "duplicate", "out_of_range", "other")
+}()
+
+var (
+	reasonDuplicate  = transport.NumReasons
+	reasonOutOfRange = transport.NumReasons + 1
+	reasonOther      = transport.NumReasons + 2
+)
+
+// engineReason maps an Ingest refusal onto its reason code. The engine
+// returns sentinel errors, not the code it counts, so this mirrors its
+// validate; a failure that is not a refusal of the input (a snapshot that
+// could not be saved) is "other".
+func engineReason(err error) int {
+	switch {
+	case errors.Is(err, engine.ErrBadSensor):
+		return int(transport.ReasonUnknownSensor)
+	case errors.Is(err, engine.ErrBadDims), errors.Is(err, engine.ErrEgoSingle):
+		return int(transport.ReasonBadDims)
+	case errors.Is(err, engine.ErrNonFinite):
+		return int(transport.ReasonNonFinite)
+	case errors.Is(err, engine.ErrBadCov):
+		return int(transport.ReasonBadCov)
+	case errors.Is(err, engine.ErrDuplicate):
+		return reasonDuplicate
+	case errors.Is(err, geo.ErrRange):
+		return reasonOutOfRange
+	}
+	return reasonOther
 }
 
 var errOtherTopic = errors.New("daemon: message on a topic no sensor listens to")
