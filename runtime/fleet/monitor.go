@@ -14,6 +14,7 @@ import (
 	"net"
 	"net/http"
 	"os"
+	"strings"
 	"sync"
 	"time"
 
@@ -79,6 +80,9 @@ func New(opts Options) (*Monitor, error) {
 	}
 	if err := validGroup(opts.Share); err != nil {
 		return nil, err
+	}
+	if strings.ContainsAny(opts.Store.TopicRoot, "+#") {
+		return nil, fmt.Errorf("fleet: topic root %q must not contain wildcards", opts.Store.TopicRoot)
 	}
 	m := &Monitor{opts: opts, st: NewStore(opts.Store), closing: make(chan struct{}), log: opts.Logger}
 	mo := mqtt.Options{URL: opts.BrokerURL, ClientID: opts.ClientID, CleanSession: true, QoS: 1,

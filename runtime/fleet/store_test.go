@@ -393,3 +393,22 @@ func TestWatchWakes(t *testing.T) {
 		t.Fatalf("changes since %d: %+v, want only b", v0, ch2.Vehicles)
 	}
 }
+
+func TestLogLimiter(t *testing.T) {
+	var l logLimiter
+	at := time.Unix(0, t0)
+	if _, ok := l.allow("bad_json", at); !ok {
+		t.Fatal("first line held back")
+	}
+	for i := 1; i <= 3; i++ {
+		if _, ok := l.allow("bad_json", at.Add(time.Duration(i)*time.Second)); ok {
+			t.Fatalf("line %d within 10 s let through", i)
+		}
+	}
+	if _, ok := l.allow("bad_field", at); !ok {
+		t.Fatal("another reason held back")
+	}
+	if n, ok := l.allow("bad_json", at.Add(10*time.Second)); !ok || n != 3 {
+		t.Fatalf("after 10 s: ok %v, held %d, want true and 3", ok, n)
+	}
+}
