@@ -9,6 +9,7 @@ import (
 	"testing"
 
 	"github.com/godwit-fusion/godwit/transport"
+	"gonum.org/v1/gonum/mat"
 	"pgregory.net/rapid"
 )
 
@@ -451,4 +452,30 @@ func TestSummaryString(t *testing.T) {
 			t.Errorf("table lacks %q:\n%s", want, got)
 		}
 	}
+}
+
+// posNEES against gonum: eᵀP⁻¹e by a Cholesky solve (mat.Cholesky) on
+// random positive definite P.
+func TestPosNEESAgainstGonum(t *testing.T) {
+	rapid.Check(t, func(rt *rapid.T) {
+		a := rapid.Float64Range(0.01, 50).Draw(rt, "a")
+		d := rapid.Float64Range(0.01, 50).Draw(rt, "d")
+		rho := rapid.Float64Range(-0.99, 0.99).Draw(rt, "rho")
+		b := rho * math.Sqrt(a*d)
+		ex, ey := rapid.Float64Range(-10, 10).Draw(rt, "ex"), rapid.Float64Range(-10, 10).Draw(rt, "ey")
+		var ch mat.Cholesky
+		if !ch.Factorize(mat.NewSymDense(2, []float64{a, b, b, d})) {
+			rt.Skip("not positive definite in floating point")
+		}
+		e := mat.NewVecDense(2, []float64{ex, ey})
+		var x mat.VecDense
+		if err := ch.SolveVecTo(&x, e); err != nil {
+			rt.Skip(err)
+		}
+		want := mat.Dot(e, &x)
+		got, ok := posNEES(ex, ey, [4]float64{a, b, b, d})
+		if !ok || !near(got, want, 1e-8) {
+			rt.Fatalf("posNEES %v (%v), gonum %v", got, ok, want)
+		}
+	})
 }

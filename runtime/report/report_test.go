@@ -15,6 +15,8 @@ import (
 
 	"github.com/godwit-fusion/godwit/runtime/eval"
 	"github.com/godwit-fusion/godwit/transport"
+	"gonum.org/v1/gonum/mat"
+	"pgregory.net/rapid"
 )
 
 func fmtUint(v uint64) string { return fmt.Sprint(v) }
@@ -208,4 +210,31 @@ func TestEllipse(t *testing.T) {
 			t.Errorf("%v: drawn, want refused (not positive definite)", P)
 		}
 	}
+}
+
+// Every point of the drawn 2-σ ellipse lies at Mahalanobis distance 2:
+// (p − c)ᵀP⁻¹(p − c) = 4, with P⁻¹ from gonum (mat.Dense.Inverse).
+func TestEllipseContour(t *testing.T) {
+	rapid.Check(t, func(rt *rapid.T) {
+		a := rapid.Float64Range(0.01, 30).Draw(rt, "a")
+		d := rapid.Float64Range(0.01, 30).Draw(rt, "d")
+		b := rapid.Float64Range(-0.95, 0.95).Draw(rt, "rho") * math.Sqrt(a*d)
+		c := [2]float64{rapid.Float64Range(-100, 100).Draw(rt, "cx"), rapid.Float64Range(-100, 100).Draw(rt, "cy")}
+		pts, ok := ellipse2σ(c, [4]float64{a, b, b, d})
+		if !ok {
+			rt.Fatal("positive definite covariance refused")
+		}
+		var inv mat.Dense
+		if err := inv.Inverse(mat.NewDense(2, 2, []float64{a, b, b, d})); err != nil {
+			rt.Skip(err)
+		}
+		for _, p := range pts {
+			e := mat.NewVecDense(2, []float64{p.X - c[0], p.Y - c[1]})
+			var w mat.VecDense
+			w.MulVec(&inv, e)
+			if m2 := mat.Dot(e, &w); math.Abs(m2-4) > 1e-6*4 {
+				rt.Fatalf("point %v at Mahalanobis² %v, want 4", p, m2)
+			}
+		}
+	})
 }
