@@ -296,6 +296,17 @@ func TestEndToEndDaemon(t *testing.T) {
 		if last := evs[len(evs)-1]; last.Kind != EventState || last.To != StateOffline {
 			t.Fatalf("last event %+v, want a state change to offline", last)
 		}
+		// Every message the daemon published met the monitor's reading of
+		// the v1 contract.
+		c := m.Store().Counters()
+		for reason, n := range c.Rejected {
+			if n != 0 {
+				t.Errorf("%d of the daemon's messages refused as %s", n, reason)
+			}
+		}
+		if c.Health < 5 {
+			t.Errorf("only %d health messages accepted", c.Health)
+		}
 	})
 }
 
