@@ -25,6 +25,12 @@ message once a second on output.health_topic. output.status_topic holds
 "online" (retained) while godwit is connected and "offline" (the last will)
 otherwise. The connection is re-made after a broker restart.
 
+With metrics.listen set (default 127.0.0.1:9464; "" turns it off) an HTTP
+endpoint there serves Prometheus metrics on /metrics, /healthz (200 while
+the process runs) and /readyz (200 when connected to the broker with every
+sensor subscription made, else 503 with the reason). If the address cannot
+be bound, godwit logs an error and fuses on without the endpoint.
+
 SIGINT or SIGTERM stops it gracefully: queued messages are processed, the
 last output is published, the status is set to "offline", exit code 0.
 
