@@ -85,7 +85,9 @@ type Figures struct {
 // it, undefined figures as "–".
 func (s *Scored) PrintTable(w io.Writer, f Figures) {
 	sum := s.Summary
-	row := func(name, format string, a ...any) { fmt.Fprintf(w, "  %-26s "+format+"\n", append([]any{name}, a...)...) }
+	row := func(name, format string, a ...any) {
+		fmt.Fprintf(w, "  %-26s "+format+"\n", append([]any{name}, a...)...)
+	}
 	p := sum.Params
 	row("tracks confirmed", "%d", f.TracksConfirmed)
 	row("epochs scored", "%d (truth objects %d, track ids %d)", sum.Epochs, sum.TruthObjects, sum.TrackIDs)

@@ -175,12 +175,12 @@ func AddNISAndLatency(ev *eval.Evaluator, cfg *configs.Config, recs []Record, la
 	}
 	period := p.RatePeriodNs()
 	var (
-		started          bool
-		clock, nextTick  int64
-		nextNIS          int64
-		pending          []int64
-		stats            []engine.SensorStats
-		dims             = make([]int, len(cfg.Sensors))
+		started         bool
+		clock, nextTick int64
+		nextNIS         int64
+		pending         []int64
+		stats           []engine.SensorStats
+		dims            = make([]int, len(cfg.Sensors))
 	)
 	for i, s := range cfg.Sensors {
 		dims[i] = configs.MeasDim(s.Kind)

@@ -22,8 +22,8 @@ func init() { commands = append(commands, newReplayCmd) }
 
 type replayFlags struct {
 	config, in, truth, out, toBroker, logLevel string
-	speed                               float64
-	retime                              bool
+	speed                                      float64
+	retime                                     bool
 }
 
 func newReplayCmd() *cobra.Command {
