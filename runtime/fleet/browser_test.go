@@ -143,7 +143,7 @@ func TestBrowserShowsStateChangeLive(t *testing.T) {
 		}
 		t.Logf("screenshot kept at %s", keep)
 	}
-	if len(png) < 8 || string(png[1:4]) != "PNG" { // PNG signature (ISO/IEC 15948, §5.2)
+	if len(png) < 8 || string(png[1:4]) != "PNG" { // PNG signature (ISO/IEC 15948 §5.2; section from memory)
 		t.Fatalf("screenshot is not a PNG (%d bytes)", len(png))
 	}
 	cancelT()

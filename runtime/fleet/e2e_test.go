@@ -444,7 +444,7 @@ func TestEndToEndScriptedVehicle(t *testing.T) {
 		waitFor(t, 5*time.Second, "back from silence", func() bool { v, _ = apiVehicle(m, car.id); return v.State == StateOK })
 
 		// The connection drops without a DISCONNECT: the broker sends the
-		// last will "offline" (MQTT 3.1.1 §3.1.2.5). Only the embedded
+		// last will "offline" (MQTT 3.1.1 §3.1.2.5, from memory). Only the embedded
 		// broker can drop a client on demand.
 		if b != nil {
 			if !b.Kick(root + "-" + car.id) {
@@ -459,7 +459,7 @@ func TestEndToEndScriptedVehicle(t *testing.T) {
 }
 
 // Two monitors in one shared subscription group split the messages: each
-// message reaches exactly one of them (MQTT 5.0 §4.8.2).
+// message reaches exactly one of them (MQTT 5.0 §4.8.2, from memory).
 func TestSharedSubscriptionSplits(t *testing.T) {
 	brokers(t, func(t *testing.T, url string, b *broker.Broker) {
 		root := uniqueRoot()

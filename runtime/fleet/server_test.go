@@ -200,7 +200,7 @@ func TestMetrics(t *testing.T) {
 	}
 }
 
-// sseReader reads Server-Sent Events (WHATWG HTML §9.2.6: fields up to a
+// sseReader reads Server-Sent Events (WHATWG HTML §9.2.6, from memory: fields up to a
 // blank line; lines starting with ':' are comments).
 type sseReader struct{ r *bufio.Reader }
 

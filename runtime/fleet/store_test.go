@@ -246,7 +246,7 @@ func TestSilentAfterOnlineWithoutHealth(t *testing.T) {
 }
 
 // The status topic carries "online" and the last will "offline" (MQTT
-// 3.1.1 §3.1.2.5, Will Flag; DESIGN.md).
+// 3.1.1 §3.1.2.5, Will Flag, from memory; DESIGN.md).
 func TestOfflineFromStatus(t *testing.T) {
 	s := NewStore(StoreConfig{SilentAfter: time.Second})
 	mustHandle(t, s, "godwit/shuttle-5/health", healthMsg(t, "shuttle-5", 1, "ok"), false, t0)
@@ -357,7 +357,7 @@ func TestMaxVehicles(t *testing.T) {
 	}
 }
 
-// Shared subscriptions are $share/{ShareName}/{filter} (MQTT 5.0 §4.8.2).
+// Shared subscriptions are $share/{ShareName}/{filter} (MQTT 5.0 §4.8.2, from memory).
 func TestFilters(t *testing.T) {
 	s := NewStore(StoreConfig{TopicRoot: "site-a/godwit"})
 	if got, want := s.Filters(""), []string{"site-a/godwit/+/health", "site-a/godwit/+/status"}; !reflect.DeepEqual(got, want) {
