@@ -57,7 +57,9 @@ type Stats struct {
 // broker.qos) and health (retained, once per HealthPeriod). The client
 // announces "online" (retained) on every connect, leaves "offline" as its
 // last will, and reconnects with capped backoff; the daemon reports each
-// outage in the log, in Stats and in the health message.
+// outage in the log, in Stats and in the health message. Prometheus
+// metrics (a registry per daemon) and the /healthz and /readyz probes are
+// served on metrics.listen while Run runs.
 type Daemon struct {
 	opts  Options
 	cfg   *configs.Config

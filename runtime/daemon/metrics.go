@@ -153,7 +153,7 @@ func newMetrics(d *Daemon) *metrics {
 	f.counterFunc("godwit_engine_rewinds_total", "Late measurements inside the lag window that made the engine rewind and re-process.",
 		eng(func(c engine.Counters) uint64 { return c.Rewinds }))
 	f.counterFunc("godwit_tracks_born_total", "Tracks started.", eng(func(c engine.Counters) uint64 { return c.Births }))
-	f.counterFunc("godwit_tracks_deleted_total", "Tracks deleted after misses.", eng(func(c engine.Counters) uint64 { return c.Deletions }))
+	f.counterFunc("godwit_tracks_deleted_total", "Tracks deleted by the tracker.", eng(func(c engine.Counters) uint64 { return c.Deletions }))
 	f.counterFunc("godwit_engine_filter_errors_total", "Filter predict or update failures (the track dropped or the update skipped).",
 		eng(func(c engine.Counters) uint64 { return c.FilterErrors }))
 	info := f.gaugeVec("godwit_vehicle_info", "Always 1; the vehicle label is the configuration's vehicle.", "vehicle")
