@@ -160,3 +160,21 @@ func BenchmarkDaemonDrain(b *testing.B) {
 		d.snapshot()
 	}
 }
+
+// The metrics' share of a message on the ingest path: counting one
+// accepted message and its step time, and (once per engine-loop step) the
+// per-sensor gap counters.
+func BenchmarkMetricsPerMessage(b *testing.B) {
+	d, err := New(Options{Config: dockPost(b)})
+	if err != nil {
+		b.Fatal(err)
+	}
+	h := handled{sensor: 1, outcome: outcomeAccepted}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		t0 := time.Now()
+		d.metrics.handled(h, time.Since(t0))
+		d.metrics.sensorCounters(d.pipe.Engine())
+	}
+}
