@@ -39,12 +39,12 @@ func (r *Row) add(key string, v float64, unit string) {
 
 // Report is a whole bench run.
 type Report struct {
-	GoVersion string `json:"go_version"`
-	OS        string `json:"os"`
-	Arch      string `json:"arch"`
-	CPUs      int    `json:"cpus"`
-	Broker    string `json:"broker,omitempty"`
-	Rows      []Row  `json:"rows"`
+	GoVersion string   `json:"go_version"`
+	OS        string   `json:"os"`
+	Arch      string   `json:"arch"`
+	CPUs      int      `json:"cpus"`
+	Broker    string   `json:"broker,omitempty"`
+	Rows      []Row    `json:"rows"`
 	Errors    []string `json:"errors,omitempty"`
 }
 

@@ -1,0 +1,121 @@
+package main
+
+import (
+	"fmt"
+	"strings"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"github.com/godwit-fusion/godwit/runtime/bench"
+	"github.com/godwit-fusion/godwit/transport/broker"
+)
+
+func init() { commands = append(commands, newBenchCmd) }
+
+func newBenchCmd() *cobra.Command {
+	var (
+		brokerURL, only     string
+		asJSON              bool
+		filterTime, latency time.Duration
+		engineSeconds, rate float64
+		detections, flood   int
+		qos                 int
+	)
+	cmd := &cobra.Command{
+		Use:   "bench [--broker URL] [--json]",
+		Short: "Measure filters, engine, replay pipeline and MQTT paths on this machine",
+		Long: `bench runs godwit's standard workloads on the machine at hand and prints one
+table. Every row is measured in this run, one after the other:
+
+  filter    one predict + update of one track: SR-KF, SR-UKF and the particle
+            filter (500 particles) against a plain covariance-form filter
+            written with gonum mat; ns/op, allocations/op and the ratio
+  engine    fusion core throughput (detections/s) on a fixed sensor post with
+            a lidar and a radar, 50 and 1000 targets with clutter
+  pipeline  decode + engine + encode from recorded bytes, as the daemon runs
+            it with output.rate_hz 0: detections/s, allocations per
+            detection and GC cycles after warm-up
+  mqtt      the broker round trip of a plain paho publisher and subscriber
+            (the limit) against publisher → godwit → subscriber: latency
+            p50/p99 at a fixed rate, from the publish time stamped in the
+            sensor message (t_ns) to the receipt of the tracks message that
+            carries it, and the sustained rate of both under a flood
+
+The MQTT rows use an embedded broker unless --broker names a real one. The
+machine should be otherwise quiet: other load shows up in every figure.`,
+		Example: `  godwit bench
+  godwit bench --broker tcp://127.0.0.1:1883 --json > bench.json
+  godwit bench --only filter,engine --filter-time 200ms`,
+		Args: usageArgs(cobra.NoArgs),
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			o := bench.Options{FilterTime: filterTime, EngineSeconds: engineSeconds, Detections: detections,
+				MQTT: bench.MQTTOptions{BrokerURL: brokerURL, Rate: rate, Latency: latency, Flood: flood, QoS: byte(qos)}}
+			if qos < 0 || qos > 1 {
+				return usagef("--qos is %d, want 0 or 1", qos)
+			}
+			if filterTime < 0 || latency < 0 || engineSeconds < 0 || rate < 0 || detections < 0 || flood < 0 {
+				return usagef("durations, rates and counts must not be negative")
+			}
+			if only != "" {
+				for _, s := range strings.Split(only, ",") {
+					s = strings.TrimSpace(s)
+					if !contains(bench.Sections, s) {
+						return usagef("--only %q: sections are %s", s, strings.Join(bench.Sections, ", "))
+					}
+					o.Sections = append(o.Sections, s)
+				}
+			}
+			wantMQTT := len(o.Sections) == 0 || contains(o.Sections, "mqtt")
+			if wantMQTT && brokerURL == "" {
+				b, err := broker.Start(broker.Config{})
+				if err != nil {
+					return fmt.Errorf("bench: embedded broker: %w", err)
+				}
+				defer b.Close()
+				o.MQTT.BrokerURL = b.URL()
+			}
+			if !asJSON {
+				o.Progress = cmd.ErrOrStderr()
+			}
+			rep := bench.Run(cmd.Context(), o)
+			if wantMQTT && brokerURL == "" {
+				rep.Broker = "embedded " + rep.Broker
+			}
+			var err error
+			if asJSON {
+				err = rep.WriteJSON(cmd.OutOrStdout())
+			} else {
+				err = rep.WriteTable(cmd.OutOrStdout())
+			}
+			if err != nil {
+				return err
+			}
+			if len(rep.Errors) > 0 {
+				return fmt.Errorf("bench: %d section(s) failed", len(rep.Errors))
+			}
+			return nil
+		},
+	}
+	f := cmd.Flags()
+	f.StringVar(&brokerURL, "broker", "", "MQTT broker URL for the mqtt rows (default: an embedded broker)")
+	f.BoolVar(&asJSON, "json", false, "print the report as JSON")
+	f.StringVar(&only, "only", "", "comma-separated sections to run: "+strings.Join(bench.Sections, ","))
+	f.DurationVar(&filterTime, "filter-time", time.Second, "measuring time per filter and per baseline")
+	f.Float64Var(&engineSeconds, "engine-seconds", 10, "scene length of the engine rows, seconds")
+	f.IntVar(&detections, "detections", 1_000_000, "detections replayed through decode+engine+encode after warm-up")
+	f.Float64Var(&rate, "rate", 2000, "messages/s of the MQTT latency phase")
+	f.DurationVar(&latency, "latency-time", 3*time.Second, "length of the MQTT latency phase")
+	f.IntVar(&flood, "flood", 50000, "messages of the MQTT throughput phase")
+	f.IntVar(&qos, "qos", 0, "MQTT QoS of both paths (0 or 1)")
+	return cmd
+}
+
+func contains(list []string, s string) bool {
+	for _, x := range list {
+		if x == s {
+			return true
+		}
+	}
+	return false
+}
