@@ -15,8 +15,10 @@ sensors:
 // expected values are DESIGN.md's v1 configuration example (qos 1, ctrv
 // srukf, accel_sd 1.5, yaw_accel_sd 0.6, gate_prob 0.999, confirm 3 of 5,
 // delete_misses 6, max_tracks 512, lag 300 ms synced, godwit/<vehicle>/...
-// topics, rate_hz 20, metrics 127.0.0.1:9464, health 3 / 500 / 2000) and
-// the loopback MQTT port 1883 (IANA registration for MQTT).
+// topics, rate_hz 20, metrics 127.0.0.1:9464, health 3 / 500 / 2000), the
+// loopback MQTT port 1883 (IANA registration for MQTT), and the health keys
+// this project adds beyond DESIGN.md (REFERENCE.md: event hold 1000 ms,
+// position s.d. bound 10 m, step budget 25 ms, clock jump 50 ms).
 func TestDefaults(t *testing.T) {
 	c, err := Parse("min.yaml", []byte(minimal))
 	if err != nil {
@@ -37,8 +39,9 @@ func TestDefaults(t *testing.T) {
 		Output: Output{TracksTopic: "godwit/yt-3/tracks", HealthTopic: "godwit/yt-3/health",
 			StatusTopic: "godwit/yt-3/status", RateHz: 20},
 		Metrics: Metrics{Listen: "127.0.0.1:9464"},
-		Health:  Health{SilentPeriods: 3, RaiseMS: 500, ClearMS: 2000},
-		Limits:  Limits{MaxPayloadBytes: 65536, QueueLength: 1024, TimeWindowMS: 10000},
+		Health: Health{SilentPeriods: 3, RaiseMS: 500, ClearMS: 2000, EventHoldMS: 1000, MaxPosSDM: 10,
+			StepBudgetMS: 25, ClockJumpMS: 50},
+		Limits: Limits{MaxPayloadBytes: 65536, QueueLength: 1024, TimeWindowMS: 10000},
 	}
 	if !reflect.DeepEqual(*c, want) {
 		t.Errorf("defaults:\n got %+v\nwant %+v", *c, want)

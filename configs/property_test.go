@@ -97,7 +97,8 @@ func genConfig(t *rapid.T) Config {
 	c.Timing = Timing{LagMS: f(0, 60000, "lag"), Clock: rapid.SampledFrom([]string{ClockSynced, ClockEstimate}).Draw(t, "clock")}
 	c.Output = Output{TracksTopic: "out/tracks", HealthTopic: "out/health", StatusTopic: "out/status", RateHz: f(0, 1000, "rate")}
 	c.Metrics.Listen = rapid.SampledFrom([]string{"", "127.0.0.1:9464", "[::1]:0", ":8080"}).Draw(t, "listen")
-	c.Health = Health{f(1e-3, 100, "silent"), f(0, 1e5, "raise"), f(0, 1e5, "clear")}
+	c.Health = Health{f(1e-3, 100, "silent"), f(0, 1e5, "raise"), f(0, 1e5, "clear"), f(1e-3, 1e5, "hold"),
+		f(1e-3, 1e4, "pos_sd"), f(1e-3, 1e5, "budget"), f(1e-3, 1e5, "jump")}
 	c.Limits = Limits{rapid.IntRange(1, 268435455).Draw(t, "payload"), rapid.IntRange(1, 1<<20).Draw(t, "queue"), f(1e-3, 1e7, "window")}
 	return c
 }

@@ -121,6 +121,17 @@ type Health struct {
 	SilentPeriods float64 `yaml:"silent_periods"`
 	RaiseMS       float64 `yaml:"raise_ms"`
 	ClearMS       float64 `yaml:"clear_ms"`
+	// EventHoldMS: an event (a sequence gap, a late drop, a late arrival,
+	// a clock step, a track reset) keeps its condition holding this long.
+	EventHoldMS float64 `yaml:"event_hold_ms"`
+	// MaxPosSDM: covariance_blowup when a confirmed track's position s.d.
+	// passes this bound, m.
+	MaxPosSDM float64 `yaml:"max_pos_sd_m"`
+	// StepBudgetMS: overrun when one engine step takes longer, ms.
+	StepBudgetMS float64 `yaml:"step_budget_ms"`
+	// ClockJumpMS: clock_offset_jump when a sensor's clock offset steps by
+	// more than this at once, ms.
+	ClockJumpMS float64 `yaml:"clock_jump_ms"`
 }
 
 // Limits bounds input handling (an extension of the v1 schema).

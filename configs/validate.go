@@ -453,6 +453,18 @@ func (v *validator) health() {
 	if h.ClearMS < 0 {
 		v.fail("health.clear_ms", "is %s; it must be ≥ 0 ms", num(h.ClearMS))
 	}
+	if h.EventHoldMS <= 0 {
+		v.fail("health.event_hold_ms", "is %s; it must be > 0 ms", num(h.EventHoldMS))
+	}
+	if h.MaxPosSDM <= 0 {
+		v.fail("health.max_pos_sd_m", "is %s; it must be > 0 m", num(h.MaxPosSDM))
+	}
+	if h.StepBudgetMS <= 0 {
+		v.fail("health.step_budget_ms", "is %s; it must be > 0 ms", num(h.StepBudgetMS))
+	}
+	if h.ClockJumpMS <= 0 {
+		v.fail("health.clock_jump_ms", "is %s; it must be > 0 ms", num(h.ClockJumpMS))
+	}
 }
 
 func (v *validator) limits() {

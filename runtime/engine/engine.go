@@ -96,8 +96,8 @@ type sensorRT struct {
 	haveArrival                                       bool
 	meanGapNs                                         float64
 
-	lateSinceNs int64 // arrival time of the first late drop
-	lostSinceNs int64 // arrival time of the first sequence gap
+	maxAgeNs float64 // sensor_late above this age at arrival; 0: not judged
+	watch    [nSensorWatches]watch
 
 	offsetNs        float64 // estimated clock offset (arrival − t_ns lower envelope)
 	haveOffset      bool
@@ -106,7 +106,9 @@ type sensorRT struct {
 	nis       [nisWindow]float64
 	nisN      int
 	nisPos    int
-	nisBounds [nisWindow + 1][2]float64 // 95% bounds of Σ NIS by sample count, filled on first use
+	nisBounds [nisWindow + 1][2]float64 // nisProb bounds of the mean NIS by sample count, filled on first use
+	nisVer    uint64                    // grows with every NIS sample
+	nisSeen   uint64                    // nisVer when the NIS watchdog last looked
 }
 
 const nisWindow = 64
@@ -161,6 +163,18 @@ type Engine struct {
 	rejectReason  []transport.ReasonCount
 
 	counters Counters
+
+	// Health watchdogs (health.go), on the caller's clock.
+	hp        healthParams
+	hw        [nVehicleWatches]watch
+	hNow      int64 // newest caller time seen
+	hStart    int64 // first caller time seen: a sensor never heard is silent from here
+	hStarted  bool
+	hChanged  bool
+	hState    int
+	hVersion  uint64
+	blowVar   float64 // largest position variance of a confirmed or coasting track after the last tracking scan
+	blowTrack uint64
 }
 
 // Counters are engine-wide totals for the caller (daemon metrics, replay summary).
@@ -193,6 +207,7 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		maxTracks:    tr.MaxTracks,
 		lagNs:        int64(cfg.Timing.LagMS * 1e6),
 		estimate:     cfg.Timing.Clock == "estimate",
+		hp:           newHealthParams(cfg.Health),
 		maxScans:     opt.MaxScans,
 		birthSpeedSD: opt.BirthSpeedSD,
 	}
@@ -312,7 +327,7 @@ func New(cfg *configs.Config, opt Options) (*Engine, error) {
 		}
 		s := &sensorRT{name: sc.Name, kind: k, dim: kindDims[k], rangeSDFrac: sc.RangeSDFrac,
 			mount:    Pose{X: sc.Mount.X, Y: sc.Mount.Y, Yaw: sc.Mount.YawDeg * math.Pi / 180},
-			periodNs: sc.PeriodMS * 1e6}
+			periodNs: sc.PeriodMS * 1e6, maxAgeNs: sc.MaxAgeMS * 1e6}
 		if len(sc.NoiseSD) != s.dim {
 			return nil, fmt.Errorf("engine: sensors[%d] (%s): noise_sd has %d values, kind %s needs %d", i, sc.Name, len(sc.NoiseSD), sc.Kind, s.dim)
 		}
@@ -435,19 +450,32 @@ func (e *Engine) Reject(sensor int, reason string) {
 // message with any invalid part changes no track and returns an error; a
 // message older than the lag window returns ErrLate and is counted.
 func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
+	e.healthTick(arrivalNs)
+	err := e.ingest(m, arrivalNs)
+	e.settle()
+	return err
+}
+
+func (e *Engine) ingest(m *transport.Measurement, arrivalNs int64) error {
 	if m.SensorIdx < 0 || m.SensorIdx >= len(e.sensors) {
 		e.Reject(-1, "unknown_sensor")
 		return ErrBadSensor
 	}
 	s := e.sensors[m.SensorIdx]
 	// The sensor spoke even when its message is refused: its sequence
-	// number and arrival still count for gaps, rate and age.
+	// number and arrival still count for gaps, rate, age and silence.
+	e.heardFrom(s, arrivalNs)
 	e.noteArrival(s, m, arrivalNs)
 	if reason, err := e.validate(s, m); err != nil {
 		e.Reject(m.SensorIdx, reason)
 		return err
 	}
 	e.noteOffset(s, m, arrivalNs)
+	age := arrivalNs - m.TNs
+	if e.estimate {
+		age -= int64(math.Round(s.offsetNs)) // the excess over the least latency
+	}
+	e.noteLate(s, age, arrivalNs)
 	e.counters.Messages++
 	e.counters.Detections += uint64(len(m.Dets))
 	s.messages++
@@ -475,9 +503,7 @@ func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
 
 	if (e.haveNewest && t < e.newestNs-e.lagNs) || (e.haveHorizon && !e.horizon.before(sc)) {
 		e.free = append(e.free, sc)
-		if s.lateDropped == 0 {
-			s.lateSinceNs = arrivalNs
-		}
+		e.noteCount(&s.watch[wLateDropped], 1, arrivalNs)
 		s.lateDropped++
 		e.counters.LateDropped++
 		return ErrLate
@@ -522,6 +548,7 @@ func (e *Engine) Ingest(m *transport.Measurement, arrivalNs int64) error {
 		e.newestNs, e.haveNewest = t, true
 	}
 	e.prune()
+	e.afterScan(s)
 	return nil
 }
 
@@ -607,9 +634,7 @@ func (e *Engine) noteArrival(s *sensorRT, m *transport.Measurement, arrivalNs in
 	if s.haveSeq {
 		switch {
 		case m.Seq > s.lastSeq+1:
-			if s.lost == 0 {
-				s.lostSinceNs = arrivalNs
-			}
+			e.noteCount(&s.watch[wLost], m.Seq-s.lastSeq-1, arrivalNs)
 			s.lost += m.Seq - s.lastSeq - 1
 		case m.Seq < s.lastSeq && s.lost > 0:
 			s.lost-- // counted as lost, then arrived after all
@@ -645,6 +670,16 @@ func (e *Engine) noteOffset(s *sensorRT, m *transport.Measurement, arrivalNs int
 	if dt := arrivalNs - s.offsetArrivalNs; dt > 0 {
 		s.offsetNs += maxDrift * float64(dt)
 		s.offsetArrivalNs = arrivalNs
+	}
+	if d < s.offsetNs-e.hp.clockJumpNs && s.messages >= jumpMinMessages {
+		// The envelope drops at once: the sensor's clock stepped forward
+		// against arrival time (or its least latency fell by this much).
+		w := &s.watch[wClockJump]
+		e.mark(w.event(arrivalNs, &e.hp))
+		w.n++
+		if j := (d - s.offsetNs) * 1e-6; math.Abs(j) > math.Abs(w.v1) {
+			w.v1, w.dirty = j, true
+		}
 	}
 	if d < s.offsetNs {
 		s.offsetNs = d

@@ -4,7 +4,6 @@ import (
 	"math"
 
 	"github.com/godwit-fusion/godwit/transport"
-	"gonum.org/v1/gonum/stat/distuv"
 )
 
 // Advance tells the engine that the caller's clock reads tNs and writes a
@@ -20,6 +19,7 @@ import (
 // out is the caller's and is reused: its slices keep their capacity, so a
 // warmed-up engine fills it without allocating.
 func (e *Engine) Advance(tNs int64, out *transport.TracksMsg) bool {
+	e.evaluate(tNs)
 	if !e.st.hasTime {
 		return false
 	}
@@ -55,6 +55,21 @@ func (e *Engine) Flush(out *transport.TracksMsg) bool {
 		return false
 	}
 	e.emit(e.st.timeNs, out)
+	return true
+}
+
+// FlushAt is Flush with the stamp chosen by the caller: the end of a
+// recording may be later than the newest measurement the engine processed
+// (a refused message, a sensor clock offset), and the final message must
+// be stamped there. Every track and the ego are predicted to tNs; a tNs
+// before the newest processed time is taken as that time, since tracks are
+// never predicted backwards. It reports false when nothing was ever
+// processed.
+func (e *Engine) FlushAt(tNs int64, out *transport.TracksMsg) bool {
+	if !e.st.hasTime {
+		return false
+	}
+	e.emit(max(tNs, e.st.timeNs), out)
 	return true
 }
 
@@ -188,54 +203,4 @@ func (s *sensorRT) meanNIS() float64 {
 		sum += s.nis[i]
 	}
 	return sum / float64(s.nisN)
-}
-
-// nisOK tests the windowed average NIS against the two-sided 95% interval
-// for the mean of k chi-square(m) variables: k·mean ~ χ²(k·m)
-// (Bar-Shalom, Li & Kirubarajan 2001, §5.4.2). Too few samples pass.
-func (s *sensorRT) nisOK() bool {
-	if s.nisN < 10 {
-		return true
-	}
-	q := &s.nisBounds[s.nisN]
-	if !(q[1] > 0) {
-		// The quantile inversion is costly and allocates: once per window size.
-		c := distuv.ChiSquared{K: float64(s.nisN * s.dim)}
-		q[0], q[1] = c.Quantile(0.025), c.Quantile(0.975)
-	}
-	sum := s.meanNIS() * float64(s.nisN)
-	return sum >= q[0] && sum <= q[1]
-}
-
-// Health writes the health message for the caller's time tNs into out
-// (reused). This is the basic report: state ok, per-sensor counts, rates,
-// ages and the NIS check, and late_dropped / messages_lost alerts.
-func (e *Engine) Health(tNs int64, out *transport.HealthMsg) {
-	out.V = 1
-	out.Vehicle = e.vehicle
-	out.TNs = tNs
-	out.State = "ok"
-	out.Alerts = out.Alerts[:0]
-	out.Sensors = out.Sensors[:0]
-	for _, s := range e.sensors {
-		h := transport.SensorHealth{Name: s.name, Lost: s.lost, Rejected: s.rejected, LateDropped: s.lateDropped,
-			NISOK: s.nisOK(), AgeMS: -1}
-		if s.meanGapNs > 0 {
-			h.RateHz = 1e9 / s.meanGapNs
-		}
-		if s.haveArrival {
-			h.AgeMS = float64(tNs-s.lastArrival) * 1e-6
-		}
-		out.Sensors = append(out.Sensors, h)
-		if s.lateDropped > 0 {
-			out.Alerts = append(out.Alerts, transport.Alert{Code: "late_dropped", Severity: "warning", Sensor: s.name,
-				SinceNs: s.lateSinceNs, Detail: "measurements older than the lag window were dropped"})
-		}
-		if s.lost > 0 {
-			out.Alerts = append(out.Alerts, transport.Alert{Code: "messages_lost", Severity: "warning", Sensor: s.name,
-				SinceNs: s.lostSinceNs, Detail: "sequence numbers are missing"})
-		}
-	}
-	out.Counters.Rejected = append(out.Counters.Rejected[:0], e.rejectReason...)
-	out.Counters.LateDropped = e.counters.LateDropped
 }

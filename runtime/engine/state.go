@@ -25,6 +25,7 @@ type trackRec struct {
 	misses    int    // consecutive misses where a sensor could see the track
 	updatedNs int64
 	class     string
+	posVar    float64 // position variance trace after the track's latest opportunity (covariance_blowup)
 }
 
 // state is the part of the engine that out-of-sequence processing must be

@@ -1,6 +1,7 @@
 package engine
 
 import (
+	"errors"
 	"math"
 	"math/bits"
 	"slices"
@@ -19,7 +20,8 @@ type workspace struct {
 
 	vis      []bool
 	hit      []bool
-	lastPrep []int // −1: prepared with the track's own R; j: with detection j's R
+	bad      []bool // the filter's update failed on a non-finite value: reset the track
+	lastPrep []int  // −1: prepared with the track's own R; j: with detection j's R
 	trackRs  [][9]float64
 	trackDet []int
 	posVar   []float64 // trace of the predicted position covariance
@@ -144,6 +146,7 @@ func (e *Engine) predictTracksTo(tNs int64) {
 		if err := st.flt[i].Predict(dt); err != nil {
 			e.counters.FilterErrors++
 			e.counters.Deletions++
+			e.noteReset(st.recs[i].id)
 			st.removeTrack(i)
 			continue
 		}
@@ -214,6 +217,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 
 	ws.vis = growBool(ws.vis, T)
 	ws.hit = growBool(ws.hit, T)
+	ws.bad = growBool(ws.bad, T)
 	ws.lastPrep = growInt(ws.lastPrep, T)
 	ws.trackDet = growInt(ws.trackDet, T)
 	ws.trackRs = grow(ws.trackRs, T)
@@ -301,6 +305,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 				nis, err := f.Update(d.z[:m])
 				if err != nil {
 					e.counters.FilterErrors++
+					ws.bad[i] = errors.Is(err, filters.ErrNonFinite)
 				} else {
 					hit = true
 					if sc.fresh {
@@ -314,6 +319,13 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 		}
 		ws.hit[i] = hit
 		e.recordOpportunity(&st.recs[i], hit, sc.tNs)
+		if hit {
+			// Positions are the first two states in every layout.
+			S := f.State().S
+			st.recs[i].posVar = S[0]*S[0] + S[n]*S[n] + S[n+1]*S[n+1]
+		} else {
+			st.recs[i].posVar = ws.posVar[i]
+		}
 	}
 
 	// Retire: failed confirmation, too many misses, or lost in covariance.
@@ -321,6 +333,7 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 	// one by one would shift the table once per deletion, quadratic in a
 	// cluttered scene.
 	keep := 0
+	e.blowVar, e.blowTrack = 0, 0
 	for i := 0; i < T; i++ {
 		rec := &st.recs[i]
 		drop := false
@@ -334,9 +347,16 @@ func (e *Engine) trackScan(sc *scan, s *sensorRT) {
 		if !ws.hit[i] && ws.posVar[i] > e.maxPosVar {
 			drop = true
 		}
+		if ws.bad[i] {
+			drop = true
+			e.noteReset(rec.id)
+		}
 		if drop {
 			e.counters.Deletions++
 			continue
+		}
+		if rec.status != statusTentative && rec.posVar > e.blowVar {
+			e.blowVar, e.blowTrack = rec.posVar, rec.id
 		}
 		if keep != i {
 			st.recs[keep] = st.recs[i]
@@ -438,6 +458,7 @@ func (e *Engine) posCov(gs filters.Gaussian, ws *workspace) (pxx, pxy, pyy float
 
 func (s *sensorRT) addNIS(v float64) {
 	s.nis[s.nisPos] = v
+	s.nisVer++
 	s.nisPos = (s.nisPos + 1) % nisWindow
 	if s.nisN < nisWindow {
 		s.nisN++
@@ -523,7 +544,7 @@ func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
 	}
 	st.nextID++
 	st.recs = append(st.recs, trackRec{id: st.nextID, status: statusTentative, hist: 1, nOpp: 1, hits: 1,
-		updatedNs: tNs, class: d.class})
+		updatedNs: tNs, class: d.class, posVar: c[0] + c[3]})
 	e.counters.Births++
 	if e.confirmM <= 1 {
 		st.recs[len(st.recs)-1].status = statusConfirmed
