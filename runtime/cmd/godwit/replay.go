@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 	"sort"
@@ -124,7 +125,14 @@ func runReplay(cmd *cobra.Command, f *replayFlags) error {
 	}
 	defer health.close()
 
-	sum, err := daemon.Replay(cmd.Context(), cfg, bufio.NewReaderSize(in, 1<<16),
+	var src io.Reader = in
+	if bar := newBytesProgress(cmd.ErrOrStderr(), "replay"); bar != nil {
+		if st, err := in.Stat(); err == nil && st.Mode().IsRegular() {
+			src = &progressReader{r: in, p: bar, size: st.Size()}
+			defer bar.done()
+		}
+	}
+	sum, err := daemon.Replay(cmd.Context(), cfg, bufio.NewReaderSize(src, 1<<16),
 		daemon.ReplayOutput{Tracks: tracks.w, Health: health.w},
 		daemon.ReplayOptions{Speed: f.speed, Logger: log})
 	if err != nil {
@@ -133,9 +141,15 @@ func runReplay(cmd *cobra.Command, f *replayFlags) error {
 	if err := errors.Join(tracks.close(), health.close()); err != nil {
 		return err
 	}
+	if pr, ok := src.(*progressReader); ok {
+		pr.p.done()
+	}
 	var scored *demo.Scored
 	if truth != nil {
-		if scored, err = scoreReplay(cfg, truth, f); err != nil {
+		stop := newProgress(cmd.ErrOrStderr(), "scoring").spin()
+		scored, err = scoreReplay(cfg, truth, f)
+		stop()
+		if err != nil {
 			return err
 		}
 	}

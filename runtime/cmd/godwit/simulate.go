@@ -52,7 +52,11 @@ The scenario format is described in examples/scenarios/README.md.`,
 				return usageError{err}
 			}
 			opt := scenario.Options{Seed: seed, SeedSet: cmd.Flags().Changed("seed"), Seconds: seconds}
+			// The simulator reports no progress of its own: a spinner with
+			// the elapsed time shows it is working.
+			stop := newProgress(cmd.ErrOrStderr(), "simulating "+sc.Name).spin()
 			st, err := sc.WriteDir(out, opt)
+			stop()
 			if err != nil {
 				if errors.Is(err, scenario.ErrTooLong) {
 					return usageError{err}
