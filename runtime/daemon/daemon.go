@@ -95,6 +95,7 @@ type Daemon struct {
 	pubLimit      time.Time
 	pubSuppressed uint64
 	lat           latencies
+	healthVersion uint64 // engine.HealthState's version at the last health message
 }
 
 // latencies keeps the ingest-to-publish latency of the last latencyWindow
@@ -287,6 +288,11 @@ func (d *Daemon) Run(ctx context.Context) error {
 		case e := <-d.events:
 			d.onEvent(e)
 		}
+		// A change of state or alerts goes out at once, not at the next
+		// health tick (issue 5).
+		if _, v := d.pipe.Engine().HealthState(); v != d.healthVersion {
+			d.publishHealth(time.Now())
+		}
 		d.snapshot()
 	}
 }
@@ -328,6 +334,9 @@ func (d *Daemon) drain(limit int) bool {
 				d.advance(d.in.ArrivalNs)
 			}
 		}
+		// The engine's overrun watchdog judges the step (with its output)
+		// and what is still waiting.
+		d.pipe.Engine().ReportLoad(d.queue.Len(), d.queue.Cap(), int64(time.Since(t0)))
 	}
 	return d.queue.Len() > 0
 }
@@ -382,12 +391,14 @@ func (d *Daemon) publishHealth(now time.Time) {
 			SinceNs: d.overflowAt.UnixNano(),
 			Detail:  fmt.Sprintf("%d message(s) dropped, oldest first: the engine fell behind the input", d.lastDropped)})
 	}
-	// Evaluated even while disconnected, so the health metrics stay
-	// current; the message itself waits for the broker.
+	// Evaluated even while disconnected, so the engine's broker watchdog
+	// and the health metrics move on; the message waits for the broker.
 	connected := d.client.Connected()
+	d.pipe.Engine().ReportBroker(connected)
 	d.pipe.latency = d.lat.summary()
 	b := d.pipe.Health(now.UnixNano(), d.alerts)
-	d.metrics.healthOut(d.pipe.health.State, len(d.pipe.health.Alerts), connected)
+	_, d.healthVersion = d.pipe.Engine().HealthState()
+	d.metrics.healthOut(d.pipe.health.State, len(d.pipe.health.Alerts))
 	if !connected {
 		return // nothing to publish to; the next health after reconnect reports it
 	}
@@ -397,10 +408,12 @@ func (d *Daemon) publishHealth(now time.Time) {
 func (d *Daemon) onEvent(e mqtt.Event) {
 	switch e.Kind {
 	case mqtt.Disconnected:
+		d.pipe.Engine().ReportBroker(false)
 		d.outages++
 		d.downSince = e.At
 		d.log.Warn("broker connection lost; reconnecting", zap.Error(e.Err), zap.Uint64("outages", d.outages))
 	case mqtt.Connected:
+		d.pipe.Engine().ReportBroker(true)
 		if !d.downSince.IsZero() {
 			d.lastOutage = e.At.Sub(d.downSince)
 			d.outageAt = d.downSince

@@ -202,12 +202,8 @@ func (m *metrics) tracksOut(msg *transport.TracksMsg, took time.Duration) {
 	m.stepAdvance.Observe(took.Seconds())
 }
 
-// healthOut sets the state gauges. While the broker is unreachable the
-// health message cannot be published, so the state is at least degraded.
-func (m *metrics) healthOut(state string, alerts int, connected bool) {
-	if !connected && state == "ok" {
-		state = "degraded"
-	}
+// healthOut sets the state gauges from the latest health evaluation.
+func (m *metrics) healthOut(state string, alerts int) {
 	for i, s := range healthStates {
 		v := 0.0
 		if s == state {

@@ -419,14 +419,20 @@ func TestReadyzFollowsBroker(t *testing.T) {
 	if c, _ := status("/healthz"); c != http.StatusOK {
 		t.Errorf("/healthz %d while the broker is down; the process is alive", c)
 	}
-	// The health evaluation goes on while the message cannot be sent.
-	if !waitFor(2*time.Second, func() bool {
+	// The health evaluation goes on while the message cannot be sent (the
+	// daemon reports the broker to the engine's watchdog at every
+	// evaluation): the state gauge stays an enum with exactly one state set.
+	if !waitFor(3*time.Second, func() bool {
 		fams, _ := scrape(t, d.MetricsAddr())
 		c, _ := value(fams, "godwit_broker_connected")
-		deg, _ := value(fams, "godwit_health_state", "state", "degraded")
-		return c == 0 && deg == 1
+		var sum float64
+		for _, s := range healthStates {
+			v, _ := value(fams, "godwit_health_state", "state", s)
+			sum += v
+		}
+		return c == 0 && sum == 1
 	}) {
-		t.Error("broker_connected 0 and health_state{degraded} 1 not seen while the broker is down")
+		t.Error("broker_connected 0 with one health state set not seen while the broker is down")
 	}
 
 	b2, err := broker.Start(broker.Config{Addr: brokerAddr})
@@ -558,4 +564,74 @@ func TestEngineRefusalReasons(t *testing.T) {
 	if err := p.Handle("elsewhere/topic", msg, now+2); err == nil || p.last.outcome != outcomeOtherTopic {
 		t.Errorf("other topic: %v, %+v", err, p.last)
 	}
+}
+
+// The state gauge is an enum: the evaluated state at 1, every other at 0.
+func TestHealthStateGauge(t *testing.T) {
+	d, err := New(Options{Config: dockPost(t)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, state := range []string{"degraded", "failed", "ok"} {
+		d.metrics.healthOut(state, 2)
+		for i, s := range healthStates {
+			var m dto.Metric
+			if err := d.metrics.health[i].Write(&m); err != nil {
+				t.Fatal(err)
+			}
+			want := 0.0
+			if s == state {
+				want = 1
+			}
+			if got := m.GetGauge().GetValue(); got != want {
+				t.Errorf("after %s: health_state{%s} = %v, want %v", state, s, got, want)
+			}
+		}
+	}
+}
+
+// A change of the engine's health (here a messages_lost alert after a seq
+// gap, raised once it has held health.raise_ms) is published at once, not
+// at the next health tick (issue 5: "at once on a change of state").
+func TestHealthPublishedOnChange(t *testing.T) {
+	defer goleak.VerifyNone(t, goleak.IgnoreCurrent())
+	b, err := broker.Start(broker.Config{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	cfg := liveConfig(t, b.URL())
+	watch := newPeer(t, b.URL(), cfg.Broker.ClientID+"-watch")
+	defer watch.close()
+	watch.sub(cfg.Output.HealthTopic)
+	// No health tick within the test: only the connect and a change publish.
+	d, err := New(Options{Config: cfg, HealthPeriod: time.Hour})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop := startDaemon(t, d)
+	defer stop()
+	if !waitConnected(d, 5*time.Second) {
+		t.Fatal("daemon did not connect")
+	}
+	pub := newPeer(t, b.URL(), cfg.Broker.ClientID+"-sensors")
+	defer pub.close()
+	scene := gatesim.NewScene(cfg, time.Now().UnixNano(), 6)
+	lost := func(m peerMsg) bool {
+		return m.topic == cfg.Output.HealthTopic && strings.Contains(string(m.payload), `"code":"messages_lost"`)
+	}
+	var seq uint64 = 1
+	deadline := time.Now().Add(5 * time.Second)
+	for time.Now().Before(deadline) {
+		seq++
+		if seq == 3 {
+			seq = 6 // seq 3..5 missing
+		}
+		pub.pub(cfg.Sensors[0].Topic, scene.Payload(0, seq, time.Now().UnixNano()), false)
+		time.Sleep(50 * time.Millisecond)
+		if _, ok := watch.await(0, lost); ok {
+			return
+		}
+	}
+	t.Errorf("no health message with messages_lost within 5 s and no health tick; stats %+v", d.Stats().Pipeline)
 }
