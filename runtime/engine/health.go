@@ -178,9 +178,11 @@ func (w *watch) event(at int64, p *healthParams) bool {
 	return c
 }
 
-// expire ends an event condition whose hold time has passed by now.
+// expire ends an event condition whose hold time has passed by now
+// (continuous conditions have no events: last stays 0, caller times are
+// positive).
 func (w *watch) expire(now int64, p *healthParams) bool {
-	if w.on && now >= w.last+p.holdNs {
+	if w.on && w.last > 0 && now >= w.last+p.holdNs {
 		return w.set(false, w.last+p.holdNs, p)
 	}
 	return false
