@@ -94,7 +94,7 @@ func TestBaselineHandWorked(t *testing.T) {
 		{Topic: topic, RxNs: tBase + 10e6, Payload: lidarMsg(1, tBase, `{"z":[20,-2.5]}`)},
 		{Topic: topic, RxNs: tBase + 110e6, Payload: lidarMsg(2, tBase+100e6, `{"z":[20,-2.5]},{"z":[40,0]}`)},
 		{Topic: topic, RxNs: tBase + 120e6, Payload: []byte(`{"v":1,"sensor":"gate_lidar","seq":3,"t_ns":`)}, // malformed: skipped
-		{Topic: "elsewhere", RxNs: tBase + 130e6, Payload: lidarMsg(4, tBase+100e6, `{"z":[1,1]}`)},        // not the sensor's topic
+		{Topic: "elsewhere", RxNs: tBase + 130e6, Payload: lidarMsg(4, tBase+100e6, `{"z":[1,1]}`)},          // not the sensor's topic
 	}
 	ev, err := eval.New(truth, eval.Options{})
 	if err != nil {
