@@ -176,6 +176,8 @@ type feeder struct {
 	scene   *bench.Live
 	period  atomic.Int64 // ns between messages
 	pause   atomic.Bool  // radar silent while set
+	hold    atomic.Bool  // both silent while set
+	lastTNs atomic.Int64 // t_ns of the newest message sent
 	jump    atomic.Int64 // added to the radar's t_ns
 	sent    atomic.Int64
 	failed  atomic.Int64
@@ -210,7 +212,7 @@ func (f *feeder) run(qos byte) {
 		case <-time.After(time.Duration(f.period.Load())):
 		}
 		radar = !radar
-		if radar && f.pause.Load() {
+		if f.hold.Load() || radar && f.pause.Load() {
 			continue
 		}
 		topic, tNs := bench.LidarTopic, time.Now().UnixNano()
@@ -225,6 +227,7 @@ func (f *feeder) run(qos byte) {
 			f.failed.Add(1)
 		} else {
 			f.sent.Add(1)
+			f.lastTNs.Store(tNs)
 		}
 	}
 }

@@ -1,0 +1,161 @@
+package resilience
+
+import (
+	"os"
+	"runtime"
+	"runtime/pprof"
+	"testing"
+	"time"
+
+	"go.uber.org/goleak"
+
+	"github.com/godwit-fusion/godwit/runtime/bench"
+)
+
+// A flood far above the nominal rate (the issue asks 10× for 10 s; this
+// runs 2 s, scaled down so CI stays short, and checks the rate reached at
+// least 10×): the daemon's memory stays bounded, the oldest messages are
+// dropped and counted, health goes degraded, and within 5 s of the flood's
+// end health is ok again and output is fresh.
+func TestFloodDropsOldestAndRecovers(t *testing.T) {
+	leaks := goleak.IgnoreCurrent()
+	// The broker runs in a child process: its buffers for slow clients
+	// are not godwit's memory.
+	url := childBroker(t)
+	const queueLen = 64
+	// Nominal: the feeder alternates the two sensors every 10 ms, so each
+	// has a 20 ms period and the nominal rate is 100 messages/s.
+	const nominal = 100.0
+	cfg, err := bench.Config(bench.ConfigParams{BrokerURL: url, LidarMS: 20, RadarMS: 20, QueueLen: queueLen})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := startDaemon(t, cfg, time.Second, nil)
+	k := newConsumer(t, url)
+	f := startFeeder(t, url, 0, 40, 10*time.Millisecond)
+	if !waitFor(10*time.Second, func() bool { return k.nT.Load() > 50 }) {
+		t.Fatalf("no steady output before the flood: %d tracks messages", k.nT.Load())
+	}
+	var ms runtime.MemStats
+	runtime.GC()
+	runtime.ReadMemStats(&ms)
+	heap0 := ms.HeapAlloc
+
+	// Flood: no pause between messages.
+	st0 := r.d.Stats()
+	sent0 := f.sent.Load()
+	floodStart := time.Now()
+	f.period.Store(0)
+	// Live heap (after a forced collection) every 250 ms: the peak of
+	// the first and of the second second.
+	var peak [2]uint64
+	for time.Since(floodStart) < 2*time.Second {
+		time.Sleep(250 * time.Millisecond)
+		half := 0
+		if time.Since(floodStart) > time.Second {
+			half = 1
+		}
+		runtime.GC()
+		runtime.ReadMemStats(&ms)
+		peak[half] = max(peak[half], ms.HeapAlloc)
+	}
+	if p := os.Getenv("GODWIT_FLOOD_HEAP"); p != "" {
+		if fh, err := os.Create(p); err == nil {
+			pprof.WriteHeapProfile(fh)
+			fh.Close()
+		}
+	}
+	f.hold.Store(true)
+	floodEnd := time.Now()
+	f.period.Store(int64(10 * time.Millisecond))
+	rate := float64(f.sent.Load()-sent0) / floodEnd.Sub(floodStart).Seconds()
+	if rate < 10*nominal {
+		t.Fatalf("the flood reached %.0f messages/s, less than 10× the nominal %.0f", rate, nominal)
+	}
+	t.Logf("flood %.0f messages/s (%.0f× nominal); live heap before %.1f MB, peak %.1f MB then %.1f MB",
+		rate, rate/nominal, float64(heap0)/1e6, float64(peak[0])/1e6, float64(peak[1])/1e6)
+
+	// Bounded: the daemon's queue holds queueLen payloads of at most
+	// max_payload_bytes (256 KiB), 16 MiB. 32 MB of growth allows for that
+	// and the clients' own buffers, and is far below what queuing 2 s of
+	// flood without bound would take (about 24 000 messages of 1.7 kB);
+	// the second second must not keep growing beyond the first (8 MB slack:
+	// queue slots grow once to the largest payload seen, GC timing).
+	if peak[1] > heap0+32<<20 {
+		t.Errorf("live heap grew from %.1f MB to %.1f MB during the flood", float64(heap0)/1e6, float64(peak[1])/1e6)
+	}
+	if peak[1] > peak[0]+peak[0]/4+8<<20 {
+		t.Errorf("heap kept growing: peak %.1f MB in the first second, %.1f MB in the second", float64(peak[0])/1e6, float64(peak[1])/1e6)
+	}
+	st1 := r.d.Stats()
+	dropped := st1.QueueDropped - st0.QueueDropped
+	if dropped == 0 {
+		t.Fatalf("nothing was dropped: the flood did not overflow the %d-message queue", queueLen)
+	}
+	// Oldest first: once the daemon has caught up, the newest message
+	// sent is the newest one processed (its t_ns stamps the last tracks
+	// message); dropping the newest would lose it.
+	waitIdle(r)
+	if got, want := r.d.Stats().Pipeline.LastTNs, f.lastTNs.Load(); got != want {
+		t.Errorf("newest tracks message stamped %d, the newest message sent %d: not the oldest dropped", got, want)
+	}
+	f.hold.Store(false)
+	if !waitFor(5*time.Second, func() bool {
+		for _, h := range k.healthSince(floodStart.UnixNano()) {
+			if hasCode(h, "queue_overflow") && h.state != "ok" {
+				return true
+			}
+		}
+		return false
+	}) {
+		t.Fatal("health never reported queue_overflow with a degraded state")
+	}
+	// Recovery: within 5 s of the end, health ok and tracks fresh again
+	// (received within 100 ms of the scan they carry).
+	var okAt time.Time
+	waitFor(5*time.Second, func() bool {
+		hs := k.healthSince(floodEnd.UnixNano())
+		if len(hs) > 0 && hs[len(hs)-1].state == "ok" {
+			okAt = time.Now()
+			return true
+		}
+		return false
+	})
+	if okAt.IsZero() {
+		hs := k.healthSince(floodEnd.UnixNano())
+		last := seen{}
+		if len(hs) > 0 {
+			last = hs[len(hs)-1]
+		}
+		t.Fatalf("health not ok within 5 s of the flood's end: state %q, alerts %v", last.state, last.codes)
+	}
+	t.Logf("health ok %.2f s after the flood; %d dropped by the queue", okAt.Sub(floodEnd).Seconds(), dropped)
+	tr, _ := k.snapshot()
+	fresh := false
+	for _, s := range tr {
+		if s.rxNs > floodEnd.UnixNano() && s.rxNs < floodEnd.Add(5*time.Second).UnixNano() && s.rxNs-s.tNs < int64(100*time.Millisecond) {
+			fresh = true
+		}
+		if s.bad {
+			t.Fatalf("a tracks message carried a non-finite or absurd value")
+		}
+	}
+	if !fresh {
+		t.Error("no fresh tracks message within 5 s of the flood's end")
+	}
+	f.close()
+	k.c.Close()
+	r.close(t)
+	goleak.VerifyNone(t, leaks)
+}
+
+// waitIdle waits until the daemon has processed nothing new for 200 ms.
+func waitIdle(r *running) {
+	prev, since := r.d.Stats().Pipeline.Messages, time.Now()
+	for time.Since(since) < 200*time.Millisecond {
+		time.Sleep(10 * time.Millisecond)
+		if m := r.d.Stats().Pipeline.Messages; m != prev {
+			prev, since = m, time.Now()
+		}
+	}
+}
