@@ -108,7 +108,7 @@ func runReplay(cmd *cobra.Command, f *replayFlags) error {
 		// Read the truth first: a bad truth file is bad usage, found before
 		// the replay runs.
 		if truth, err = readTruth(f.truth); err != nil {
-			return usageError{err}
+			return usageError{fmt.Errorf("--truth: %w", err)}
 		}
 	}
 	if err := os.MkdirAll(f.out, 0o755); err != nil {

@@ -198,3 +198,77 @@ func TestReplaySimulatedScenarios(t *testing.T) {
 		})
 	}
 }
+
+// replay --truth on the shipped sample (examples/sample: 15 s of the
+// campus-shuttle scene and its truth): the output still conforms to v1
+// (check-v1 replay-out), summary.json keeps the replay's fields and adds the
+// evaluation, the report is written, and the tracks beat the raw
+// detections on GOSPA (the point of fusing them).
+func TestReplayTruthSample(t *testing.T) {
+	const rec, truth = "../../../examples/sample/recording.jsonl", "../../../examples/sample/truth.jsonl"
+	out := filepath.Join(t.TempDir(), "out")
+	code, stdout, stderr := runCmd(t, nil, "replay", "--config", "../../../configs/campus-shuttle.yaml",
+		"--in", rec, "--truth", truth, "--out", out, "--log-level", "error")
+	if code != exitOK {
+		t.Fatalf("replay --truth: exit %d\n%s", code, stderr)
+	}
+	for _, row := range []string{"GOSPA mean", "position RMSE", "NEES mean", "latency p50 / p99", "report: "} {
+		if !strings.Contains(stdout, row) {
+			t.Errorf("no %q in the output:\n%s", row, stdout)
+		}
+	}
+	checkV1(t, out, rec)
+	checkPageFiles(t, out)
+	b, err := os.ReadFile(filepath.Join(out, "summary.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var sum struct {
+		TracksMessages *int `json:"tracks_messages"`
+		Evaluation     *struct {
+			Epochs int `json:"epochs"`
+			GOSPA  struct {
+				Mean *float64 `json:"mean"`
+			} `json:"gospa"`
+			Baseline []struct {
+				Sensor string   `json:"sensor"`
+				Mean   *float64 `json:"mean"`
+			} `json:"baseline"`
+			NIS []struct {
+				Sensor string `json:"sensor"`
+			} `json:"nis"`
+		} `json:"evaluation"`
+	}
+	if err := json.Unmarshal(b, &sum); err != nil {
+		t.Fatal(err)
+	}
+	if sum.TracksMessages == nil || sum.Evaluation == nil || sum.Evaluation.GOSPA.Mean == nil || sum.Evaluation.Epochs < 250 {
+		t.Fatalf("summary.json lacks the replay fields or the evaluation:\n%s", b)
+	}
+	// Three tracking sensors (front_radar, front_camera, roof_lidar): each
+	// has a baseline and NIS samples.
+	if len(sum.Evaluation.Baseline) != 3 || len(sum.Evaluation.NIS) < 3 {
+		t.Errorf("baseline %+v, NIS %+v: want the three tracking sensors", sum.Evaluation.Baseline, sum.Evaluation.NIS)
+	}
+	g := *sum.Evaluation.GOSPA.Mean
+	for _, bl := range sum.Evaluation.Baseline {
+		if bl.Mean == nil || !(g < *bl.Mean) {
+			t.Errorf("tracks GOSPA %.3g m, raw %s detections %v: tracks must be lower", g, bl.Sensor, bl.Mean)
+		}
+	}
+}
+
+func TestReplayBadTruth(t *testing.T) {
+	dir := t.TempDir()
+	bad := filepath.Join(dir, "truth.jsonl")
+	if err := os.WriteFile(bad, []byte("{\"t_ns\":5,\"objects\":[]}\n{\"t_ns\":4,\"objects\":[]}\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	for _, truth := range []string{bad, filepath.Join(dir, "missing.jsonl")} {
+		code, _, stderr := runCmd(t, nil, "replay", "--config", "../../../configs/campus-shuttle.yaml",
+			"--in", "../../../examples/sample/recording.jsonl", "--truth", truth, "--out", filepath.Join(dir, "out"))
+		if code != exitUsage || !strings.Contains(stderr, "truth") {
+			t.Errorf("--truth %s: exit %d, want %d with the file named\n%s", truth, code, exitUsage, stderr)
+		}
+	}
+}
