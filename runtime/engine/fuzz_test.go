@@ -74,12 +74,37 @@ func fuzzIngestOnce(t *testing.T, data []byte) {
 				m.Dets = append(m.Dets, d)
 			}
 			_ = e.Ingest(&m, tn)
+			if h[3]&1 != 0 { // the caller's reports, at arbitrary moments
+				e.ReportLoad(int(h[1]), 64, int64(h[2])*1e6)
+				e.ReportBroker(h[3]&2 == 0)
+			}
 			if e.Advance(tn, &out) {
 				checkOut(t, &out, cfg.Tracker.MaxTracks)
 			}
 		}
 		if e.Flush(&out) {
 			checkOut(t, &out, cfg.Tracker.MaxTracks)
+		}
+		checkHealth(t, e, tn)
+	}
+}
+
+// checkHealth: the health message encodes (every number finite), its state
+// is one of the three and its alerts are sorted.
+func checkHealth(t *testing.T, e *Engine, tn int64) {
+	t.Helper()
+	var h transport.HealthMsg
+	e.Health(tn, &h)
+	if _, err := transport.AppendHealth(nil, &h); err != nil {
+		t.Fatalf("health does not encode: %v (%+v)", err, h)
+	}
+	if h.State != "ok" && h.State != "degraded" && h.State != "failed" {
+		t.Fatalf("state %q", h.State)
+	}
+	for i := 1; i < len(h.Alerts); i++ {
+		a, b := h.Alerts[i-1], h.Alerts[i]
+		if a.Code > b.Code || (a.Code == b.Code && a.Sensor > b.Sensor) {
+			t.Fatalf("alerts not sorted: %+v", h.Alerts)
 		}
 	}
 }

@@ -196,6 +196,13 @@ func (e *Engine) healthTick(t int64) {
 	}
 	if !e.hStarted {
 		e.hStart, e.hStarted = t, true
+		// A report that came before any clock reading (broker down at
+		// start) holds from the first reading.
+		for k := range e.hw {
+			if w := &e.hw[k]; w.on {
+				w.onSince = t
+			}
+		}
 	}
 	e.hNow = max(e.hNow, t)
 }

@@ -206,6 +206,29 @@ func TestWatchSensorSilent(t *testing.T) {
 	}
 }
 
+// A sensor never heard from is silent from the engine's first clock
+// reading; a broker reported down before any reading is down from it.
+func TestWatchNeverHeard(t *testing.T) {
+	e := mustNew(t, hzConfig())
+	e.ReportBroker(false)
+	var h transport.HealthMsg
+	for k := int64(0); k <= 7; k++ {
+		tn := t0 + k*hzPeriod
+		if err := e.Ingest(xyMsg(1, uint64(k+1), tn, [2]float64{10, 5}), tn); err != nil {
+			t.Fatal(err)
+		}
+	}
+	e.Health(t0+799e6, &h)
+	if len(h.Alerts) != 1 || h.Alerts[0].Code != "broker_disconnected" || h.Alerts[0].SinceNs != t0 {
+		t.Fatalf("at 799 ms: alerts %+v, want only broker_disconnected since 0 ms", h.Alerts)
+	}
+	e.Health(t0+800e6, &h) // 3 periods + raise_ms after the first reading
+	if len(h.Alerts) != 2 || h.Alerts[1].Code != "sensor_silent" || h.Alerts[1].Sensor != "mast_lidar" ||
+		h.Alerts[1].SinceNs != t0+300e6 || h.State != "failed" {
+		t.Fatalf("at 800 ms: state %s alerts %+v", h.State, h.Alerts)
+	}
+}
+
 // Every tracking sensor silent: nothing can be tracked, the alerts are
 // errors and the vehicle is failed; both recover.
 func TestWatchAllSilentFails(t *testing.T) {
