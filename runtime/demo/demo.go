@@ -313,12 +313,13 @@ func shiftTNs(p *fastjson.Parser, a *fastjson.Arena, dst, payload []byte, offset
 		return nil, 0, false
 	}
 	t, err := tv.Int64()
-	if err != nil || t > math.MaxInt64-offset || t < math.MinInt64+offset {
-		return nil, 0, false
+	shifted := t + offset
+	if err != nil || (offset > 0) != (shifted > t) && offset != 0 {
+		return nil, 0, false // not an integer, or the sum overflows
 	}
 	a.Reset()
-	v.Set("t_ns", a.NewNumberString(strconv.FormatInt(t+offset, 10)))
-	return v.MarshalTo(dst), t + offset, true
+	v.Set("t_ns", a.NewNumberString(strconv.FormatInt(shifted, 10)))
+	return v.MarshalTo(dst), shifted, true
 }
 
 func wait(ctx context.Context, d time.Duration) error {
