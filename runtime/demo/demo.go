@@ -15,7 +15,9 @@
 // by the time scale and every acceleration by its square. The price is that
 // the measurement times run ahead of their arrival by up to
 // seconds·(1 − 1/speed), so the demo widens limits.time_window_ms by that
-// much. Tracks come back stamped in the shifted time; the scoring subtracts
+// much, and health.clock_jump_ms too: from the receiver's side every sensor
+// clock gains on the wall clock, which the clock-offset watchdog would
+// otherwise report as a stepping clock. Tracks come back stamped in the shifted time; the scoring subtracts
 // D again and compares them with the truth in scene time.
 package demo
 
@@ -245,8 +247,8 @@ func Run(ctx context.Context, opt Options) (*Result, error) {
 }
 
 // liveConfig is the scenario's configuration pointed at the embedded
-// broker, with the plausible-time window widened for the accelerated clock
-// (see the package comment) and no metrics endpoint (a fixed port could be
+// broker, with the plausible-time window and the clock-step watchdog
+// widened for the accelerated clock (see the package comment) and no metrics endpoint (a fixed port could be
 // taken; the demo reads the daemon's counters directly).
 func liveConfig(base *configs.Config, url string, seconds, speed float64) *configs.Config {
 	c := *base
@@ -255,7 +257,12 @@ func liveConfig(base *configs.Config, url string, seconds, speed float64) *confi
 	c.Broker.Username, c.Broker.PasswordFile = "", ""
 	c.Broker.TLS = configs.TLS{}
 	c.Metrics.Listen = ""
-	c.Limits.TimeWindowMS += 1000 * seconds * (1 - 1/speed)
+	drift := 1000 * seconds * (1 - 1/speed) // ms the t_ns gain on the wall clock over the run
+	c.Limits.TimeWindowMS += drift
+	// Seen from the receiver, every sensor clock runs speed× fast, which
+	// the clock-offset watchdog rightly reports as a stepping clock; the
+	// step it may take is widened by the same drift (nothing at speed 1).
+	c.Health.ClockJumpMS += drift
 	return &c
 }
 
