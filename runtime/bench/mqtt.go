@@ -1,6 +1,7 @@
 package bench
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"fmt"
@@ -84,12 +85,13 @@ func (s *scanPayload) next() ([]byte, error) {
 
 // receiver records, for every message on its topic, now − t_ns.
 type receiver struct {
-	mu    sync.Mutex
-	lat   []float64 // ms
-	count atomic.Int64
-	last  atomic.Int64 // wall ns of the newest receipt
-	keep  atomic.Bool
-	p     fastjson.Parser
+	mu     sync.Mutex
+	lat    []float64 // ms
+	tracks int       // tracks in the newest message
+	count  atomic.Int64
+	last   atomic.Int64 // wall ns of the newest receipt
+	keep   atomic.Bool
+	p      fastjson.Parser
 }
 
 func (r *receiver) handle(_ paho.Client, m paho.Message) {
@@ -97,6 +99,10 @@ func (r *receiver) handle(_ paho.Client, m paho.Message) {
 	r.count.Add(1)
 	r.last.Store(now)
 	if !r.keep.Load() {
+		// Count the tracks of the newest message only (the process row).
+		r.mu.Lock()
+		r.tracks = bytes.Count(m.Payload(), []byte(`"id":`))
+		r.mu.Unlock()
 		return
 	}
 	r.mu.Lock()
@@ -108,6 +114,12 @@ func (r *receiver) handle(_ paho.Client, m paho.Message) {
 	if t := v.GetInt64("t_ns"); t > 0 {
 		r.lat = append(r.lat, float64(now-t)*1e-6)
 	}
+}
+
+func (r *receiver) lastTracks() int {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return r.tracks
 }
 
 func (r *receiver) reset(keep bool) {

@@ -19,15 +19,18 @@ type Options struct {
 	Detections int
 	// MQTT runs the MQTT rows when BrokerURL is set.
 	MQTT MQTTOptions
+	// Executable, when set, is a godwit binary for the process row (run
+	// against MQTT.BrokerURL).
+	Executable string
 	// Sections limits the run to these sections (filter, engine,
-	// pipeline, mqtt); empty means all.
+	// pipeline, mqtt, process); empty means all.
 	Sections []string
 	// Progress, when set, gets one line as each section starts.
 	Progress io.Writer
 }
 
 // Sections are the bench's parts, in the order they run.
-var Sections = []string{"filter", "engine", "pipeline", "mqtt"}
+var Sections = []string{"filter", "engine", "pipeline", "mqtt", "process"}
 
 // Run measures the standard workloads one after another in this process and
 // returns the table. A section that fails is reported in Errors and the
@@ -102,6 +105,15 @@ func Run(ctx context.Context, o Options) *Report {
 		rep.Rows = append(rep.Rows, rows...)
 		if err != nil {
 			fail("mqtt", err)
+		}
+	}
+	if want("process") && o.Executable != "" && o.MQTT.BrokerURL != "" && ctx.Err() == nil {
+		say("godwit run as a process, 500 targets")
+		r, err := ProcessRow(ctx, o.Executable, o.MQTT.BrokerURL)
+		if err != nil {
+			fail("process", err)
+		} else {
+			rep.Rows = append(rep.Rows, r)
 		}
 	}
 	return rep

@@ -53,6 +53,11 @@ type ConfigParams struct {
 // the scenes (straight driving here, 0.27 m/s² centripetal in Live), so
 // the radar's NIS stays consistent and health stays ok on clean input.
 func Config(p ConfigParams) (*configs.Config, error) {
+	return configs.Parse("bench-post.yaml", []byte(ConfigYAML(p)))
+}
+
+// ConfigYAML is the bench post's configuration as a YAML file would hold it.
+func ConfigYAML(p ConfigParams) string {
 	if p.BrokerURL == "" {
 		p.BrokerURL = "tcp://127.0.0.1:1883"
 	}
@@ -91,7 +96,7 @@ limits: {max_payload_bytes: 262144, queue_length: %d}
 `, Vehicle, p.BrokerURL, p.ClientID, p.QoS, p.Persistent,
 		LidarName, LidarTopic, p.LidarMS, RadarName, RadarTopic, p.RadarMS,
 		p.MaxTracks, p.LagMS, TracksTopic, HealthTopic, StatusTopic, p.RateHz, p.QueueLen)
-	return configs.Parse("bench-post.yaml", []byte(y))
+	return y
 }
 
 // Scene is a generated workload: yard tractors on a grid, seen by the post.
