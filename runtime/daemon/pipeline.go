@@ -257,6 +257,15 @@ func (p *Pipeline) Flush() ([]byte, bool) {
 	return p.encodeTracks(), true
 }
 
+// FlushAt is Flush stamped at tNs (engine.FlushAt): the end of a recording,
+// whose newest measurement may be one the engine refused.
+func (p *Pipeline) FlushAt(tNs int64) ([]byte, bool) {
+	if !p.eng.FlushAt(tNs, &p.tracks) {
+		return nil, false
+	}
+	return p.encodeTracks(), true
+}
+
 // releaseBuffers gives up the output buffers after a publish that may still
 // hold one (a timeout inside the MQTT library); the next message allocates.
 func (p *Pipeline) releaseBuffers() {

@@ -108,7 +108,9 @@ const maxCatchUpNs = int64(10 * time.Second)
 // Replay feeds a recording through the pipeline with the recorded arrival
 // times as the only clock, writes tracks and health lines to out, and at the
 // end of input one final tracks message stamped at the latest measurement
-// time. Periodic output (output.rate_hz) falls on the multiples of the period
+// time: the newest t_ns of any measurement-shaped payload in the recording
+// (see measurementTNs), accepted or not, since that is the time the
+// recording reached. Periodic output (output.rate_hz) falls on the multiples of the period
 // in recorded time, exactly where the daemon's clock would put it, so the
 // same recording always gives the same bytes. Cancelling ctx stops reading;
 // the final message and the summary are still produced.
@@ -134,6 +136,8 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 		wallStart  time.Time
 		paceNs     int64 // recorded time elapsed, gaps capped at maxCatchUpNs
 		prevRx     int64
+		latestTNs  int64 // newest measurement time in the recording
+		haveLatest bool
 	)
 	write := func(w io.Writer, b []byte) error {
 		if w == nil {
@@ -185,6 +189,12 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 		if err != nil {
 			return nil, fmt.Errorf("reading the recording: %w", err)
 		}
+		// Every measurement-shaped payload counts for the final stamp, as
+		// the v1 checker counts it: rejected ones, other topics, skipped
+		// arrival times included.
+		if t, ok := measurementTNs(r.Payload); ok && (!haveLatest || t > latestTNs) {
+			latestTNs, haveLatest = t, true
+		}
 		if r.RxNs <= 0 || r.RxNs > maxRxNs {
 			sum.BadArrival++
 			log.Warn("recording entry with an implausible rx_ns skipped", zap.Int("line", r.Line), zap.Int64("rx_ns", r.RxNs))
@@ -224,7 +234,11 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 			}
 		}
 	}
-	if b, ok := p.Flush(); ok {
+	final := p.Flush
+	if haveLatest {
+		final = func() ([]byte, bool) { return p.FlushAt(latestTNs) }
+	}
+	if b, ok := final(); ok {
 		if err := write(out.Tracks, b); err != nil {
 			return nil, err
 		}
