@@ -52,6 +52,7 @@ type PathResult struct {
 	FloodReceived    int     // at the subscriber (godwit: tracks messages)
 	FloodIngested    uint64  // godwit only: messages the pipeline took
 	FloodDropped     uint64  // godwit only: dropped by the daemon's queue
+	FloodPushed      uint64  // godwit only: reached the daemon's queue
 	RatePerSec       float64 // sustained: received (godwit: ingested) ÷ time
 	StartToFirstMsMs float64 // godwit only: Run → first message ingested
 }
@@ -341,6 +342,7 @@ func GodwitPath(ctx context.Context, o MQTTOptions) (PathResult, error) {
 	res.FloodSent, res.FloodReceived = o.Flood, int(rcv.count.Load())
 	res.FloodIngested = s1.Pipeline.Messages - s0.Pipeline.Messages
 	res.FloodDropped = s1.QueueDropped - s0.QueueDropped
+	res.FloodPushed = s1.QueuePushed - s0.QueuePushed
 	if el := lastIngest.Sub(t0); el > 0 {
 		res.RatePerSec = float64(res.FloodIngested) / el.Seconds()
 	}
@@ -372,7 +374,7 @@ func MQTTRows(ctx context.Context, o MQTTOptions) ([]Row, error) {
 	r2.add("added p99", gw.P99Ms-raw.P99Ms, "ms")
 	r2.add("ratio", gw.RatePerSec/raw.RatePerSec, "")
 	r2.add("start→first msg", gw.StartToFirstMsMs, "ms")
-	r2.Note = fmt.Sprintf("latency: %d/%d tracks msgs; flood: %d ingested, %d dropped by the queue, %d tracks msgs",
-		gw.Received, gw.Sent, gw.FloodIngested, gw.FloodDropped, gw.FloodReceived)
+	r2.Note = fmt.Sprintf("latency: %d/%d tracks msgs; flood of %d: %d never reached godwit (broker), %d dropped by godwit's queue (oldest first), %d ingested, %d tracks msgs",
+		gw.Received, gw.Sent, gw.FloodSent, uint64(gw.FloodSent)-min(gw.FloodPushed, uint64(gw.FloodSent)), gw.FloodDropped, gw.FloodIngested, gw.FloodReceived)
 	return []Row{r1, r2}, nil
 }
