@@ -173,6 +173,8 @@ type Engine struct {
 	hChanged  bool
 	hState    int
 	hVersion  uint64
+	loadOver  bool    // the latest ReportLoad found an overrun
+	dropEarly bool    // ReportDropped came before any clock reading
 	blowVar   float64 // largest position variance of a confirmed or coasting track after the last tracking scan
 	blowTrack uint64
 }

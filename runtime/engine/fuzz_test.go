@@ -77,6 +77,9 @@ func fuzzIngestOnce(t *testing.T, data []byte) {
 			if h[3]&1 != 0 { // the caller's reports, at arbitrary moments
 				e.ReportLoad(int(h[1]), 64, int64(h[2])*1e6)
 				e.ReportBroker(h[3]&2 == 0)
+				if h[3]&4 != 0 {
+					e.ReportDropped(uint64(h[1] & 7))
+				}
 			}
 			if e.Advance(tn, &out) {
 				checkOut(t, &out, cfg.Tracker.MaxTracks)

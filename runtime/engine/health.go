@@ -127,6 +127,7 @@ type watch struct {
 	n      uint64  // a count in this episode
 	v1, v2 float64 // a peak or the values at onset, per code
 	track  uint64
+	drops  uint64 // overrun: input messages the caller dropped in this episode
 }
 
 // judge applies the hysteresis at time now and reports whether the alert
@@ -160,7 +161,7 @@ func (w *watch) set(on bool, at int64, p *healthParams) bool {
 	if on {
 		w.onSince = at
 		if !w.raised { // a new episode: its numbers start again
-			w.n, w.v1, w.v2, w.track = 0, 0, 0, 0
+			w.n, w.v1, w.v2, w.track, w.drops = 0, 0, 0, 0, 0
 		}
 	} else {
 		w.offSince = at
@@ -202,6 +203,9 @@ func (e *Engine) healthTick(t int64) {
 			if w := &e.hw[k]; w.on {
 				w.onSince = t
 			}
+		}
+		if e.dropEarly {
+			e.hw[wOverrun].last = t
 		}
 	}
 	e.hNow = max(e.hNow, t)
@@ -306,7 +310,16 @@ func (e *Engine) afterScan(s *sensorRT) {
 func (e *Engine) ReportLoad(depth, capacity int, stepNs int64) {
 	over := (capacity > 0 && float64(depth) >= queueHigh*float64(capacity)) || stepNs > e.hp.stepBudgetNs
 	w := &e.hw[wOverrun]
-	e.mark(w.set(over, e.hNow, &e.hp))
+	wasOver := e.loadOver
+	e.loadOver = over
+	switch {
+	case over:
+		e.mark(w.set(true, e.hNow, &e.hp))
+	case wasOver && !e.dropHeld(e.hNow):
+		e.mark(w.set(false, e.hNow, &e.hp))
+	case !wasOver:
+		e.mark(w.expire(e.hNow, &e.hp)) // only a drop held it
+	}
 	if !over {
 		e.settle()
 		return
@@ -323,12 +336,54 @@ func (e *Engine) ReportLoad(depth, capacity int, stepNs int64) {
 	e.settle()
 }
 
+// ReportDropped tells the engine that the caller dropped n input messages
+// since its last report (a full queue): an overrun event at the newest time
+// the engine has seen, of severity error, which holds the overrun condition
+// for health.event_hold_ms. A drop is over in an instant, far shorter than
+// health.raise_ms, so without the hold a burst that overflowed the queue
+// between two reports would never be seen. Before any clock reading it
+// holds from the first one.
+func (e *Engine) ReportDropped(n uint64) {
+	if n == 0 {
+		return
+	}
+	w := &e.hw[wOverrun]
+	if e.loadOver {
+		w.last = max(w.last, e.hNow) // on already; the load report ends it
+	} else {
+		e.mark(w.event(e.hNow, &e.hp))
+	}
+	if !e.hStarted {
+		e.dropEarly = true
+	}
+	w.drops += n
+	if !w.err {
+		e.hChanged = true
+	}
+	w.err, w.dirty = true, true
+	e.settle()
+}
+
+// dropHeld reports whether a drop still holds the overrun condition at now.
+func (e *Engine) dropHeld(now int64) bool {
+	w := &e.hw[wOverrun]
+	return w.drops > 0 && w.last > 0 && now < w.last+e.hp.holdNs
+}
+
 // ReportBroker tells the engine whether the caller is connected to its
 // MQTT broker; a disconnection is judged from the newest time the engine
 // has seen. An engine never told (replay) counts as connected.
 func (e *Engine) ReportBroker(connected bool) {
 	e.mark(e.hw[wBroker].set(!connected, e.hNow, &e.hp))
 	e.settle()
+}
+
+// ReportBrokerAt is ReportBroker with a reading of the caller's clock at
+// the change, so that an outage is judged from when it began and ended,
+// not from the newest time the engine had seen before.
+func (e *Engine) ReportBrokerAt(connected bool, tNs int64) {
+	e.healthTick(tNs)
+	e.ReportBroker(connected)
 }
 
 // evaluate brings every watchdog to time now.
@@ -357,7 +412,9 @@ func (e *Engine) evaluate(now int64) {
 	}
 	for k := range e.hw {
 		w := &e.hw[k]
-		e.mark(w.expire(now, p))
+		if k != wOverrun || !e.loadOver { // a drop's hold does not end an overrun still reported
+			e.mark(w.expire(now, p))
+		}
 		e.mark(w.judge(now, p))
 	}
 	e.settle()
@@ -533,8 +590,15 @@ func (e *Engine) vehicleDetail(k int, w *watch) string {
 	case wNumeric:
 		return fmt.Sprintf("%d track(s) dropped after a filter failure (non-finite value), the last track %d", w.n, w.track)
 	case wOverrun:
-		return fmt.Sprintf("input queue up to %d of %.0f, step up to %.1f ms (budget %.1f ms)", w.n, w.v2, w.v1,
+		d := fmt.Sprintf("input queue up to %d of %.0f, step up to %.1f ms (budget %.1f ms)", w.n, w.v2, w.v1,
 			float64(e.hp.stepBudgetNs)*1e-6)
+		switch {
+		case w.drops > 0 && w.v2 == 0 && w.v1 == 0:
+			d = fmt.Sprintf("%d input message(s) dropped, the queue was full", w.drops)
+		case w.drops > 0:
+			d += fmt.Sprintf("; %d input message(s) dropped, the queue was full", w.drops)
+		}
+		return d
 	case wBroker:
 		return "not connected to the MQTT broker"
 	}

@@ -586,6 +586,99 @@ func TestWatchOverrun(t *testing.T) {
 	}
 }
 
+// Input the caller dropped (a full queue) is an overrun event: a burst
+// dropped between two load reports holds the condition event_hold_ms, so it
+// raises raise_ms later as an error although every load report was fine;
+// a drop during a reported overrun keeps it on past the load's end for the
+// hold, and the load's end does not cut the hold short.
+func TestWatchDroppedInput(t *testing.T) {
+	r := newHzRun(t, hzConfig(), Options{})
+	r.steady(0, 0, 10000e6, 0)
+	r.steady(1, 0, 10000e6, 50e6)
+	r.calls = append(r.calls, func(now int64) {
+		r.e.Health(now, &r.h) // the daemon's clock reading before its report
+		rel := now - t0
+		if rel == 1000e6 {
+			r.e.ReportDropped(6)
+		}
+		if rel == 6000e6 {
+			r.e.ReportDropped(2)
+		}
+		if rel >= 5000e6 && rel < 6500e6 {
+			r.e.ReportLoad(3, 4, 40e6)
+		} else {
+			r.e.ReportLoad(0, 4, 5e6)
+		}
+	})
+	r.play(10000e6)
+	// Burst at 1000 ms: held to 2000 ms, raised at 1500, cleared at 4000.
+	// Load over 5000–6500 ms with a drop at 6000: held to 7000 ms.
+	up, down := r.raised["overrun/"], r.cleared["overrun/"]
+	want := func(got []int64, w ...int64) bool {
+		if len(got) != len(w) {
+			return false
+		}
+		for i := range w {
+			if got[i]-t0 != w[i] {
+				return false
+			}
+		}
+		return true
+	}
+	if !want(up, 1500e6, 5500e6) || !want(down, 4000e6, 9000e6) {
+		t.Fatalf("overrun raised at %v ms and cleared at %v ms, want raised 1500, 5500 and cleared 4000, 9000",
+			rels(up), rels(down))
+	}
+	a := r.first["overrun/"]
+	if a.Severity != "error" || a.SinceNs != t0+1000e6 || a.Detail != "6 input message(s) dropped, the queue was full" {
+		t.Errorf("alert of the burst %+v", a)
+	}
+	if s := r.stateAt(1500e6); s != "failed" {
+		t.Errorf("state %s after dropped input, want failed", s)
+	}
+	if s := r.stateAt(5800e6); s != "degraded" {
+		t.Errorf("state %s with the step over budget, want degraded", s)
+	}
+	if s := r.stateAt(6000e6); s != "failed" {
+		t.Errorf("state %s after input dropped during the overrun, want failed", s)
+	}
+	h := r.history[6800e6/hzTick]
+	if len(h.Alerts) != 1 || !strings.HasSuffix(h.Alerts[0].Detail, "; 2 input message(s) dropped, the queue was full") {
+		t.Errorf("at 6800 ms: alerts %+v", h.Alerts)
+	}
+	if s := r.stateAt(9000e6); s != "ok" {
+		t.Errorf("state %s after recovery, want ok", s)
+	}
+}
+
+// Drops reported before the engine's first clock reading hold from it.
+func TestWatchDroppedBeforeClock(t *testing.T) {
+	e := mustNew(t, hzConfig())
+	e.ReportDropped(3)
+	var h transport.HealthMsg
+	for k := int64(0); k < 40; k++ {
+		tn := t0 + k*hzPeriod
+		for i := 0; i < 2; i++ {
+			if err := e.Ingest(xyMsg(i, uint64(k+1), tn, [2]float64{10, 5}), tn); err != nil {
+				t.Fatal(err)
+			}
+		}
+		e.Health(tn, &h)
+		// (Noise-free positions make the NIS alert too; only overrun counts here.)
+		var over []transport.Alert
+		for _, a := range h.Alerts {
+			if a.Code == "overrun" {
+				over = append(over, a)
+			}
+		}
+		on := len(over) == 1 && over[0].SinceNs == t0 && over[0].Severity == "error"
+		// Raised raise_ms after the first reading, cleared clear_ms after the hold.
+		if wantOn := k*hzPeriod >= hzRaise && k*hzPeriod < hzHold+hzClear; on != wantOn || (!on && len(over) > 0) {
+			t.Fatalf("at %d ms: alerts %+v, want overrun since 0 ms: %v", k*hzPeriod/1e6, h.Alerts, wantOn)
+		}
+	}
+}
+
 // Broker disconnected for 1 s: an error, the vehicle failed; it clears
 // clear_ms after the connection is back.
 func TestWatchBroker(t *testing.T) {
