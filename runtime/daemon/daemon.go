@@ -28,8 +28,11 @@ type Options struct {
 	// HealthPeriod is the cadence of the retained health message; 0 means
 	// 1 s (DESIGN.md).
 	HealthPeriod time.Duration
-	// AlertHold is how long the health message keeps reporting a broker
-	// outage or queue overflow after it happened; 0 means 60 s.
+	// AlertHold is no longer used: broker outages and queue overflows are
+	// the engine's broker_disconnected and overrun alerts, held and
+	// cleared by the health keys (raise_ms, clear_ms, event_hold_ms).
+	//
+	// Deprecated: kept so that existing callers still compile.
 	AlertHold time.Duration
 }
 
@@ -88,10 +91,7 @@ type Daemon struct {
 	outages       uint64
 	lastOutage    time.Duration
 	downSince     time.Time
-	outageAt      time.Time
-	lastDropped   uint64
-	overflowAt    time.Time
-	alerts        []transport.Alert
+	lastDropped   uint64 // queue drops already reported to the engine
 	pubLimit      time.Time
 	pubSuppressed uint64
 	lat           latencies
@@ -152,9 +152,6 @@ func New(opts Options) (*Daemon, error) {
 	}
 	if opts.HealthPeriod <= 0 {
 		opts.HealthPeriod = time.Second
-	}
-	if opts.AlertHold <= 0 {
-		opts.AlertHold = time.Minute
 	}
 	if cfg.Broker.QoS < 0 || cfg.Broker.QoS > 2 {
 		return nil, fmt.Errorf("daemon: broker.qos %d, want 0, 1 or 2", cfg.Broker.QoS)
@@ -335,7 +332,8 @@ func (d *Daemon) drain(limit int) bool {
 			}
 		}
 		// The engine's overrun watchdog judges the step (with its output)
-		// and what is still waiting.
+		// and what is still waiting, and any messages the queue dropped.
+		d.reportDrops()
 		d.pipe.Engine().ReportLoad(d.queue.Len(), d.queue.Cap(), int64(time.Since(t0)))
 	}
 	return d.queue.Len() > 0
@@ -375,28 +373,25 @@ func (d *Daemon) publish(kind int, topic string, b []byte, retain bool) bool {
 	return false
 }
 
-func (d *Daemon) publishHealth(now time.Time) {
-	d.alerts = d.alerts[:0]
-	if !d.outageAt.IsZero() && now.Sub(d.outageAt) < d.opts.AlertHold {
-		d.alerts = append(d.alerts, transport.Alert{Code: "broker_outage", Severity: "warning",
-			SinceNs: d.outageAt.UnixNano(),
-			Detail: fmt.Sprintf("broker connection lost %d time(s), the last outage lasted %d ms",
-				d.outages, d.lastOutage.Milliseconds())})
-	}
+// reportDrops hands the queue's new drops to the engine, whose overrun
+// alert reports them (the queue counts them; the metrics keep the total).
+func (d *Daemon) reportDrops() {
 	if dropped := d.queue.Dropped(); dropped > d.lastDropped {
-		d.lastDropped, d.overflowAt = dropped, now
+		d.pipe.Engine().ReportDropped(dropped - d.lastDropped)
+		d.lastDropped = dropped
 	}
-	if !d.overflowAt.IsZero() && now.Sub(d.overflowAt) < d.opts.AlertHold {
-		d.alerts = append(d.alerts, transport.Alert{Code: "queue_overflow", Severity: "warning",
-			SinceNs: d.overflowAt.UnixNano(),
-			Detail:  fmt.Sprintf("%d message(s) dropped, oldest first: the engine fell behind the input", d.lastDropped)})
-	}
+}
+
+func (d *Daemon) publishHealth(now time.Time) {
 	// Evaluated even while disconnected, so the engine's broker watchdog
 	// and the health metrics move on; the message waits for the broker.
+	// Outages and overflows are the engine's broker_disconnected and
+	// overrun alerts.
+	d.reportDrops()
 	connected := d.client.Connected()
 	d.pipe.Engine().ReportBroker(connected)
 	d.pipe.latency = d.lat.summary()
-	b := d.pipe.Health(now.UnixNano(), d.alerts)
+	b := d.pipe.Health(now.UnixNano(), nil)
 	_, d.healthVersion = d.pipe.Engine().HealthState()
 	d.metrics.healthOut(d.pipe.health.State, len(d.pipe.health.Alerts))
 	if !connected {
@@ -408,15 +403,14 @@ func (d *Daemon) publishHealth(now time.Time) {
 func (d *Daemon) onEvent(e mqtt.Event) {
 	switch e.Kind {
 	case mqtt.Disconnected:
-		d.pipe.Engine().ReportBroker(false)
+		d.pipe.Engine().ReportBrokerAt(false, e.At.UnixNano())
 		d.outages++
 		d.downSince = e.At
 		d.log.Warn("broker connection lost; reconnecting", zap.Error(e.Err), zap.Uint64("outages", d.outages))
 	case mqtt.Connected:
-		d.pipe.Engine().ReportBroker(true)
+		d.pipe.Engine().ReportBrokerAt(true, e.At.UnixNano())
 		if !d.downSince.IsZero() {
 			d.lastOutage = e.At.Sub(d.downSince)
-			d.outageAt = d.downSince
 			d.downSince = time.Time{}
 			d.log.Info("broker connection back", zap.Duration("outage", d.lastOutage))
 		}

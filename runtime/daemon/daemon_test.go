@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"os"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"testing"
@@ -373,7 +374,7 @@ func TestDaemonSurvivesBrokerRestart(t *testing.T) {
 			return false
 		}
 		for _, a := range h.Alerts {
-			if a.Code == "broker_outage" {
+			if a.Code == "broker_disconnected" {
 				return true
 			}
 		}
@@ -405,7 +406,8 @@ func waitConnected(d *Daemon, timeout time.Duration) bool {
 }
 
 // A full queue drops the oldest messages (the newest are worth more to a
-// tracker, common practice), counts them and says so in the health message.
+// tracker, common practice), counts them and says so in the health message
+// (the engine's overrun alert; the daemon adds no alert of its own).
 func TestDaemonReportsQueueOverflow(t *testing.T) {
 	defer goleak.VerifyNone(t, goleak.IgnoreCurrent())
 	b, err := broker.Start(broker.Config{})
@@ -437,14 +439,17 @@ func TestDaemonReportsQueueOverflow(t *testing.T) {
 		var h struct {
 			State  string `json:"state"`
 			Alerts []struct {
-				Code, Detail string
+				Code, Severity, Detail string
 			} `json:"alerts"`
 		}
 		if json.Unmarshal(m.payload, &h) != nil {
 			return false
 		}
 		for _, a := range h.Alerts {
-			if a.Code == "queue_overflow" && h.State == "degraded" {
+			// The engine's overrun alert: dropped input is an error
+			// (runtime/engine ReportDropped), the vehicle failed.
+			if a.Code == "overrun" && a.Severity == "error" && h.State == "failed" &&
+				strings.Contains(a.Detail, "6 input message(s) dropped") {
 				return true
 			}
 		}
@@ -455,7 +460,7 @@ func TestDaemonReportsQueueOverflow(t *testing.T) {
 		t.Fatal(err)
 	}
 	if !ok {
-		t.Fatal("no degraded health message with a queue_overflow alert")
+		t.Fatal("no failed health message with an overrun alert for the 6 dropped messages")
 	}
 	t.Logf("health: %.300s", m.payload)
 	st := d.Stats()
