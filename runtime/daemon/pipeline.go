@@ -295,9 +295,10 @@ func (p *Pipeline) encodeTracks() []byte {
 	return p.tbuf
 }
 
-// Health encodes the health message for time nowNs. extra alerts (the
-// daemon's own: broker outage, queue overflow) are appended and make the
-// state at least degraded. The bytes are valid until the next Health.
+// Health encodes the health message for time nowNs. extra alerts (a
+// caller's own; the daemon has none since the engine watches the broker
+// and the queue) are appended and make the state at least degraded. The
+// bytes are valid until the next Health.
 func (p *Pipeline) Health(nowNs int64, extra []transport.Alert) []byte {
 	p.eng.Health(nowNs, &p.health)
 	p.health.LatencyMS = p.latency
