@@ -590,6 +590,15 @@ func (p *Filter) CopyFrom(src filters.Filter) error {
 	return nil
 }
 
+// Reseed restarts the random source from (seed1, seed2), as New seeds it,
+// and leaves the particles and weights as they are. Filters copied from one
+// template share its random source and would draw the same noise in step;
+// a caller reseeds each copy (the engine from its track id) to give each
+// its own sequence while keeping runs repeatable. It does not allocate.
+func (p *Filter) Reseed(seed1, seed2 uint64) {
+	p.pcg.Seed(seed1, seed2)
+}
+
 // ESS is the effective sample size 1/Σwᵢ² after the last update (N after
 // resampling or Init).
 func (p *Filter) ESS() float64 { return p.ess }

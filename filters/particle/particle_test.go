@@ -393,6 +393,87 @@ func TestRepeatableAndCopyFrom(t *testing.T) {
 	}
 }
 
+// Reseed: copies of one filter reseeded differently draw different noise
+// (their particles part after one step); reseeding with the same seeds
+// repeats a run bit for bit, and equals seeding the same values at New.
+// A PCG's output is a function of its seed alone (O'Neill 2014, PCG
+// report; math/rand/v2: "Seed resets the PCG to behave the same way as
+// NewPCG(seed1, seed2)").
+func TestReseed(t *testing.T) {
+	run := func(p *Filter, rb *models.RangeBearing) []float64 {
+		Rs := []float64{0.5, 0, 0, 0.02}
+		var out []float64
+		for k := 0; k < 8; k++ {
+			if err := p.Predict(0.1); err != nil {
+				t.Fatal(err)
+			}
+			if err := p.Prepare(rb, Rs); err != nil {
+				t.Fatal(err)
+			}
+			nis, err := p.Update([]float64{27 + 0.3*float64(k), 0.18})
+			if err != nil {
+				t.Fatal(err)
+			}
+			x, w := p.Particles()
+			out = append(out, nis)
+			out = append(out, x...)
+			out = append(out, w...)
+		}
+		return out
+	}
+	tmpl, rb := newCTRVFilter(t, 300, 11)
+	copyOf := func(s1, s2 uint64) *Filter {
+		p, _ := newCTRVFilter(t, 300, 99)
+		if err := p.CopyFrom(tmpl); err != nil {
+			t.Fatal(err)
+		}
+		p.Reseed(s1, s2)
+		return p
+	}
+	a, b, a2 := copyOf(7, 1), copyOf(7, 2), copyOf(7, 1)
+	ra, rb2, ra2 := run(a, rb), run(b, rb), run(a2, rb)
+	if !slices.Equal(ra, ra2) {
+		t.Fatal("the same seeds gave different runs")
+	}
+	// After the first predict every particle has had its own noise draw.
+	xa, xb := ra[1:1+300*5], rb2[1:1+300*5]
+	same := 0
+	for i := range xa {
+		if xa[i] == xb[i] {
+			same++
+		}
+	}
+	if same > 0 {
+		t.Fatalf("%d of %d particle components equal after one step under different seeds", same, len(xa))
+	}
+	// Reseed then Init draws as New with those seeds then Init does.
+	ctrv, err := models.NewCTRV(1.5, 0.6)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fresh, err1 := New(ctrv, Config{Particles: 300, Seed1: 42, Seed2: 5})
+	re, err2 := New(ctrv, Config{Particles: 300, Seed1: 1, Seed2: 1})
+	if err1 != nil || err2 != nil {
+		t.Fatal(err1, err2)
+	}
+	re.Reseed(42, 5)
+	S0 := make([]float64, 25)
+	for i, sd := range []float64{1, 1, 1, 0.3, 0.1} {
+		S0[i*5+i] = sd
+	}
+	for _, p := range []*Filter{fresh, re} {
+		if err := p.Init([]float64{30, 5, 4, 0.2, 0.05}, S0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if !slices.Equal(run(fresh, rb), run(re, rb)) {
+		t.Fatal("Reseed(42, 5) then Init differs from New with Seed1 42, Seed2 5")
+	}
+	if n := testing.AllocsPerRun(100, func() { a.Reseed(3, 4) }); n != 0 {
+		t.Errorf("Reseed: %v allocs", n)
+	}
+}
+
 // Bad input returns an error and leaves every bit of the state unchanged.
 func TestBadInputLeavesStateUntouched(t *testing.T) {
 	p, rb := newCTRVFilter(t, 200, 3)
