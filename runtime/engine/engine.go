@@ -407,6 +407,22 @@ const (
 	pfSeed2 = 1
 )
 
+// reseeder is a track filter with a random source of its own (the particle
+// filter), reseeded at every birth.
+type reseeder interface {
+	Reseed(seed1, seed2 uint64)
+}
+
+// trackSeed spreads a track id over 64 bits with the SplitMix64 finaliser
+// (Steele, Lea & Flood 2014, "Fast splittable pseudorandom number
+// generators", OOPSLA), so that consecutive ids seed unrelated streams.
+func trackSeed(id uint64) uint64 {
+	z := id + 0x9e3779b97f4a7c15
+	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9
+	z = (z ^ (z >> 27)) * 0x94d049bb133111eb
+	return z ^ (z >> 31)
+}
+
 // rejectReasons is the fixed order of the health message's counters.rejected
 // (the decoder's reason codes first, then the engine's own).
 var rejectReasons = []string{"bad_json", "unknown_sensor", "bad_dims", "non_finite", "bad_cov",

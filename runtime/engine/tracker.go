@@ -538,6 +538,12 @@ func (e *Engine) birth(d *storedDet, pos [2]float64, c [4]float64, tNs int64) {
 			return
 		}
 	}
+	if r, ok := f.(reseeder); ok {
+		// Each copy of the template would draw the template's noise: give
+		// the track its own sequence, keyed by its id, which an in-order
+		// run and a rewind assign alike.
+		r.Reseed(pfSeed1, trackSeed(st.nextID+1))
+	}
 	if err := f.Init(x0[:n], S0[:n*n]); err != nil {
 		e.counters.FilterErrors++
 		return
