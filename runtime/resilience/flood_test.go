@@ -15,8 +15,9 @@ import (
 // A flood far above the nominal rate (the issue asks 10× for 10 s; this
 // runs 2 s, scaled down so CI stays short, and checks the rate reached at
 // least 10×): the daemon's memory stays bounded, the oldest messages are
-// dropped and counted, health goes degraded, and within 5 s of the flood's
-// end health is ok again and output is fresh.
+// dropped and counted, health reports the overrun (degraded, failed once
+// the queue is full), and within 5 s of catching up health is ok again
+// and output is fresh.
 func TestFloodDropsOldestAndRecovers(t *testing.T) {
 	leaks := goleak.IgnoreCurrent()
 	// The broker runs in a child process: its buffers for slow clients
@@ -26,7 +27,9 @@ func TestFloodDropsOldestAndRecovers(t *testing.T) {
 	// Nominal: the feeder alternates the two sensors every 10 ms, so each
 	// has a 20 ms period and the nominal rate is 100 messages/s.
 	const nominal = 100.0
-	cfg, err := bench.Config(bench.ConfigParams{BrokerURL: url, LidarMS: 20, RadarMS: 20, QueueLen: queueLen})
+	// QoS 1 for godwit's output, so the broker cannot drop the health
+	// messages this test reads; the flood itself is QoS 0.
+	cfg, err := bench.Config(bench.ConfigParams{BrokerURL: url, QoS: 1, LidarMS: 20, RadarMS: 20, QueueLen: queueLen})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -119,13 +122,17 @@ func TestFloodDropsOldestAndRecovers(t *testing.T) {
 	resumed := time.Now()
 	if !waitFor(5*time.Second, func() bool {
 		for _, h := range k.healthSince(floodStart.UnixNano()) {
-			if hasCode(h, "queue_overflow") && h.state != "ok" {
+			if hasCode(h, "overrun") && h.state != "ok" {
 				return true
 			}
 		}
 		return false
 	}) {
-		t.Fatal("health never reported queue_overflow with a degraded state")
+		hs := k.healthSince(floodStart.UnixNano())
+		for _, h := range hs {
+			t.Logf("health at +%.2f s: %s %v", float64(h.rxNs-floodStart.UnixNano())*1e-9, h.state, h.codes)
+		}
+		t.Fatalf("health never reported overrun with a state other than ok (%d health messages since the flood began)", len(hs))
 	}
 	// Recovery: within 5 s of the end, health ok and tracks fresh again
 	// (received within 100 ms of the scan they carry).
