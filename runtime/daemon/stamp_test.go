@@ -191,3 +191,18 @@ func referenceTNs(b []byte) (int64, bool) {
 	}
 	return v, true
 }
+
+// The cost the final stamp adds per recorded message (one radar scan of
+// the dock post scene).
+func BenchmarkMeasurementTNs(b *testing.B) {
+	cfg := dockPost(b)
+	msgs := gatesim.Gate(cfg, time.Second, 3)
+	payload := msgs[len(msgs)/2].Payload
+	b.SetBytes(int64(len(payload)))
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, ok := measurementTNs(payload); !ok {
+			b.Fatal("not a measurement")
+		}
+	}
+}
