@@ -19,6 +19,10 @@ type Options struct {
 	Detections int
 	// MQTT runs the MQTT rows when BrokerURL is set.
 	MQTT MQTTOptions
+	// StartBroker, when set and MQTT.BrokerURL is empty, starts a broker
+	// just before the MQTT rows (an embedded one, so that it does not run,
+	// and allocate, during the rows measured before); stop ends it.
+	StartBroker func() (url string, stop func(), err error)
 	// Executable, when set, is a godwit binary for the process row (run
 	// against MQTT.BrokerURL).
 	Executable string
@@ -97,6 +101,16 @@ func Run(ctx context.Context, o Options) *Report {
 			fail("pipeline", err)
 		} else {
 			rep.Rows = append(rep.Rows, r)
+		}
+	}
+	if (want("mqtt") || want("process")) && o.MQTT.BrokerURL == "" && o.StartBroker != nil && ctx.Err() == nil {
+		url, stop, err := o.StartBroker()
+		if err != nil {
+			fail("mqtt", err)
+		} else {
+			defer stop()
+			o.MQTT.BrokerURL = url
+			rep.Broker = "embedded " + url
 		}
 	}
 	if want("mqtt") && o.MQTT.BrokerURL != "" && ctx.Err() == nil {

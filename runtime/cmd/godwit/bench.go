@@ -69,25 +69,22 @@ machine should be otherwise quiet: other load shows up in every figure.`,
 					o.Sections = append(o.Sections, s)
 				}
 			}
-			wantMQTT := len(o.Sections) == 0 || contains(o.Sections, "mqtt") || contains(o.Sections, "process")
 			if exe, err := os.Executable(); err == nil {
 				o.Executable = exe
 			}
-			if wantMQTT && brokerURL == "" {
-				b, err := broker.Start(broker.Config{})
-				if err != nil {
-					return fmt.Errorf("bench: embedded broker: %w", err)
+			if brokerURL == "" {
+				o.StartBroker = func() (string, func(), error) {
+					b, err := broker.Start(broker.Config{})
+					if err != nil {
+						return "", nil, fmt.Errorf("embedded broker: %w", err)
+					}
+					return b.URL(), func() { _ = b.Close() }, nil
 				}
-				defer b.Close()
-				o.MQTT.BrokerURL = b.URL()
 			}
 			if !asJSON {
 				o.Progress = cmd.ErrOrStderr()
 			}
 			rep := bench.Run(cmd.Context(), o)
-			if wantMQTT && brokerURL == "" {
-				rep.Broker = "embedded " + rep.Broker
-			}
 			var err error
 			if asJSON {
 				err = rep.WriteJSON(cmd.OutOrStdout())
