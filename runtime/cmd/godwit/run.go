@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"net/url"
+	"time"
 
 	"github.com/godwit-fusion/godwit/runtime/daemon"
 	"github.com/godwit-fusion/godwit/transport/broker"
@@ -11,6 +12,9 @@ import (
 )
 
 func init() { commands = append(commands, newRunCmd) }
+
+// embeddedLinger is how long an embedded broker outlives the daemon at stop.
+const embeddedLinger = 500 * time.Millisecond
 
 func newRunCmd() *cobra.Command {
 	var path, level string
@@ -59,7 +63,13 @@ broker.url first, for a quick try on a machine without Mosquitto.`,
 				if err != nil {
 					return fmt.Errorf("embedded broker on %s: %w (is another broker listening there?)", u.Host, err)
 				}
-				defer b.Close()
+				defer func() {
+					// The daemon's last words (the offline status) are acknowledged
+					// by the broker before they reach every subscriber; linger a
+					// moment so closing the broker does not cut them off.
+					time.Sleep(embeddedLinger)
+					b.Close()
+				}()
 				log.Info("embedded broker listening", zap.String("url", b.URL()))
 			}
 			d, err := daemon.New(daemon.Options{Config: cfg, Logger: log})
