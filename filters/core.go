@@ -83,7 +83,7 @@ func checkMeas(h MeasurementModel, Rs []float64) (int, error) {
 // x⁺ = x + K̄·Sy⁻¹·(z ⊖ ẑ) and P⁺ = P − K̄·K̄ᵀ.
 type innovation struct {
 	h        MeasurementModel
-	m, mCap  int
+	m, measCap  int
 	prepared bool
 	zhat     []float64 // m
 	Sy       []float64 // m×m
@@ -93,10 +93,10 @@ type innovation struct {
 }
 
 func (v *innovation) grow(n, m int) bool {
-	if m <= v.mCap {
+	if m <= v.measCap {
 		return false
 	}
-	v.mCap = m
+	v.measCap = m
 	v.zhat = make([]float64, m)
 	v.Sy = make([]float64, m*m)
 	v.Kbar = make([]float64, n*m)

@@ -29,7 +29,7 @@ type SREKF struct {
 	xp, F, G, pre, Sp []float64
 	triP              *TriaWork
 
-	// Update workspace, sized for mCap.
+	// Update workspace, sized for measCap.
 	H, preU, Spost []float64
 	sgn            []float64
 }

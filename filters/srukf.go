@@ -79,7 +79,7 @@ type SRUKF struct {
 	triP    *TriaWork
 	c, s    []float64 // downdate rotations, n
 
-	// Update workspace, sized for mCap.
+	// Update workspace, sized for measCap.
 	Z, Dz, preU  []float64
 	Rt, arr, sgn []float64 // R̃ square root, update array, signs
 	Spost        []float64
