@@ -28,7 +28,7 @@ func TestBrokerKilledAndRestartedTwice(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	r := startDaemon(t, cfg, 5*time.Second, nil)
+	r := startDaemon(t, cfg, nil)
 	k := newConsumer(t, url)
 	f := startFeeder(t, url, 0, 5, 10*time.Millisecond)
 	if !waitFor(10*time.Second, func() bool { return k.nT.Load() > 20 }) {
@@ -95,7 +95,7 @@ func TestPersistentSessionLosesNothingDuringOutage(t *testing.T) {
 		t.Fatal(err)
 	}
 	// A 400 ms backoff leaves a real gap between the cut and the reconnect.
-	r := startDaemon(t, cfg, time.Second, func(o *mqtt.Options) { o.MinBackoff, o.MaxBackoff = 400*time.Millisecond, 400*time.Millisecond })
+	r := startDaemon(t, cfg, func(o *mqtt.Options) { o.MinBackoff, o.MaxBackoff = 400*time.Millisecond, 400*time.Millisecond })
 	pub, err := mqtt.New(mqtt.Options{URL: b.URL(), ClientID: "resilience-persist-pub", CleanSession: true, QoS: 1})
 	if err != nil {
 		t.Fatal(err)

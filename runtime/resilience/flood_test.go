@@ -33,7 +33,7 @@ func TestFloodDropsOldestAndRecovers(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	r := startDaemon(t, cfg, time.Second, nil)
+	r := startDaemon(t, cfg, nil)
 	k := newConsumer(t, url)
 	f := startFeeder(t, url, 0, 40, 10*time.Millisecond)
 	if !waitFor(10*time.Second, func() bool { return k.nT.Load() > 50 }) {

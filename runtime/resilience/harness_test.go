@@ -26,9 +26,9 @@ type running struct {
 
 // startDaemon runs a daemon with a short reconnect backoff (20–200 ms),
 // then tune when set.
-func startDaemon(t *testing.T, cfg *configs.Config, alertHold time.Duration, tune func(*mqtt.Options)) *running {
+func startDaemon(t *testing.T, cfg *configs.Config, tune func(*mqtt.Options)) *running {
 	t.Helper()
-	d, err := daemon.New(daemon.Options{Config: cfg, HealthPeriod: 100 * time.Millisecond, AlertHold: alertHold,
+	d, err := daemon.New(daemon.Options{Config: cfg, HealthPeriod: 100 * time.Millisecond,
 		MQTT: func(o *mqtt.Options) {
 			o.MinBackoff, o.MaxBackoff = 20*time.Millisecond, 200*time.Millisecond
 			if tune != nil {
