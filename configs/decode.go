@@ -4,12 +4,13 @@ import (
 	"fmt"
 	"math"
 	"reflect"
-	"sort"
 	"strconv"
 	"strings"
 	"unicode/utf8"
 
 	"gopkg.in/yaml.v3"
+
+	"github.com/godwit-fusion/godwit/configs/yamlstrict"
 )
 
 // maxNodes bounds the work of one decode. Aliases can make a small file
@@ -22,70 +23,30 @@ const maxNodes = 100000
 // every error in the file is reported at once, and it remembers which keys
 // were given (for defaults) and where (for validation messages).
 type decoder struct {
-	file   string
-	errs   []*Error
-	lines  map[string]int  // field path -> line of its value
-	cols   map[string]int  // field path -> column of its value
-	set    map[string]bool // field paths given in the file (non-null)
-	seen   map[string]bool // problems already recorded
-	budget int
-	over   bool
+	yamlstrict.Doc[origin]
+	lines map[string]int  // field path -> line of its value
+	cols  map[string]int  // field path -> column of its value
+	set   map[string]bool // field paths given in the file (non-null)
 }
 
 func newDecoder(file string) *decoder {
 	return &decoder{
-		file:   file,
-		lines:  map[string]int{},
-		cols:   map[string]int{},
-		set:    map[string]bool{},
-		seen:   map[string]bool{},
-		budget: maxNodes,
+		// Once: a mapping merged in several places (<<) would otherwise
+		// report the same mistake at the same place again.
+		Doc:   yamlstrict.Doc[origin]{File: file, MaxNodes: maxNodes, Once: true},
+		lines: map[string]int{},
+		cols:  map[string]int{},
+		set:   map[string]bool{},
 	}
 }
 
 func (d *decoder) errorf(line int, path, format string, args ...any) {
-	d.errorAt(line, 0, path, format, args...)
-}
-
-// errorAt records a problem once: a mapping merged in several places (<<)
-// would otherwise report the same mistake at the same place again.
-func (d *decoder) errorAt(line, col int, path, format string, args ...any) {
-	e := &Error{File: d.file, Line: line, Column: col, Path: path, Msg: fmt.Sprintf(format, args...)}
-	key := fmt.Sprintf("%d\x00%s\x00%s", line, path, e.Msg)
-	if d.seen[key] {
-		return
-	}
-	d.seen[key] = true
-	d.errs = append(d.errs, e)
+	d.Add(line, 0, path, format, args...)
 }
 
 // nodeErr records a problem at a node's line and column.
 func (d *decoder) nodeErr(n *yaml.Node, path, format string, args ...any) {
-	d.errorAt(n.Line, n.Column, path, format, args...)
-}
-
-// resolve follows aliases and charges the node budget; it returns nil once
-// the budget is spent.
-func (d *decoder) resolve(n *yaml.Node) *yaml.Node {
-	for hops := 0; n != nil && n.Kind == yaml.AliasNode; hops++ {
-		if hops > 100 {
-			return nil
-		}
-		n = n.Alias
-	}
-	d.budget--
-	if d.budget < 0 {
-		if !d.over {
-			d.over = true
-			d.errorf(0, "", "more than %d YAML values (alias expansion?); refusing to decode", maxNodes)
-		}
-		return nil
-	}
-	return n
-}
-
-func isNull(n *yaml.Node) bool {
-	return n.Kind == yaml.ScalarNode && n.Tag == "!!null"
+	d.Add(n.Line, n.Column, path, format, args...)
 }
 
 func describe(n *yaml.Node) string {
@@ -103,21 +64,14 @@ func describe(n *yaml.Node) string {
 	return "an unsupported YAML node"
 }
 
-func join(path, key string) string {
-	if path == "" {
-		return key
-	}
-	return path + "." + key
-}
-
 // decode stores n into v, reporting problems under path.
 func (d *decoder) decode(n *yaml.Node, v reflect.Value, path string) {
-	n = d.resolve(n)
+	n = d.Resolve(n)
 	if n == nil {
 		return
 	}
 	d.lines[path], d.cols[path] = n.Line, n.Column
-	if isNull(n) {
+	if yamlstrict.IsNull(n) {
 		return // an empty value means "not given": the default applies
 	}
 	switch v.Kind() {
@@ -250,10 +204,10 @@ func (d *decoder) decodeStruct(n *yaml.Node, v reflect.Value, path string) {
 			} else {
 				msg += "; expected one of " + strings.Join(fieldNames(v.Type()), ", ")
 			}
-			d.nodeErr(p.key, join(path, key), "%s", msg)
+			d.nodeErr(p.key, yamlstrict.Join(path, key), "%s", msg)
 			continue
 		}
-		d.decode(p.val, v.Field(i), join(path, key))
+		d.decode(p.val, v.Field(i), yamlstrict.Join(path, key))
 	}
 }
 
@@ -264,7 +218,7 @@ func (d *decoder) pairs(n *yaml.Node, path string) []pair {
 	var own, merged []pair
 	first := map[string]int{}
 	for i := 0; i+1 < len(n.Content); i += 2 {
-		k := d.resolve(n.Content[i])
+		k := d.Resolve(n.Content[i])
 		if k == nil {
 			return own
 		}
@@ -277,7 +231,7 @@ func (d *decoder) pairs(n *yaml.Node, path string) []pair {
 			continue
 		}
 		if at, dup := first[k.Value]; dup {
-			d.nodeErr(k, join(path, k.Value), "is given twice (first at line %d)", at)
+			d.nodeErr(k, yamlstrict.Join(path, k.Value), "is given twice (first at line %d)", at)
 			continue
 		}
 		first[k.Value] = k.Line
@@ -294,7 +248,7 @@ func (d *decoder) pairs(n *yaml.Node, path string) []pair {
 }
 
 func (d *decoder) mergeSource(n *yaml.Node, path string) []pair {
-	n = d.resolve(n)
+	n = d.Resolve(n)
 	if n == nil {
 		return nil
 	}
@@ -306,7 +260,7 @@ func (d *decoder) mergeSource(n *yaml.Node, path string) []pair {
 		var out []pair
 		seen := map[string]bool{}
 		for _, c := range n.Content {
-			c = d.resolve(c)
+			c = d.Resolve(c)
 			if c == nil {
 				return out
 			}
@@ -362,7 +316,7 @@ func fieldNames(t reflect.Type) []string {
 func suggest(s string, candidates []string) string {
 	best, bestD := "", math.MaxInt
 	for _, c := range candidates {
-		d := editDistance(strings.ToLower(s), c)
+		d := yamlstrict.EditDistance(strings.ToLower(s), c)
 		if d < bestD || (d == bestD && c < best) {
 			best, bestD = c, d
 		}
@@ -372,37 +326,6 @@ func suggest(s string, candidates []string) string {
 		return ""
 	}
 	return best
-}
-
-// editDistance is the Levenshtein distance (Levenshtein 1966), computed with
-// the usual two-row dynamic programme over bytes.
-func editDistance(a, b string) int {
-	if len(a) > 64 || len(b) > 64 {
-		return math.MaxInt // not a typo of any key; keeps fuzzed input cheap
-	}
-	prev := make([]int, len(b)+1)
-	cur := make([]int, len(b)+1)
-	for j := range prev {
-		prev[j] = j
-	}
-	for i := 1; i <= len(a); i++ {
-		cur[0] = i
-		for j := 1; j <= len(b); j++ {
-			cost := 1
-			if a[i-1] == b[j-1] {
-				cost = 0
-			}
-			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
-		}
-		prev, cur = cur, prev
-	}
-	return prev[len(b)]
-}
-
-// sortErrors orders problems by line so the list reads top to bottom;
-// problems without a line come first, and ties keep their finding order.
-func sortErrors(errs []*Error) {
-	sort.SliceStable(errs, func(i, j int) bool { return errs[i].Line < errs[j].Line })
 }
 
 // badText reports a control character or invalid UTF-8 in s, described

@@ -4,6 +4,8 @@ import (
 	"reflect"
 	"strings"
 	"testing"
+
+	"github.com/godwit-fusion/godwit/configs/yamlstrict"
 )
 
 const minimal = `vehicle: yt-3
@@ -160,7 +162,7 @@ func schemaKeys(t reflect.Type, prefix string) []string {
 	var out []string
 	for i := 0; i < t.NumField(); i++ {
 		f := t.Field(i)
-		k := join(prefix, yamlKey(f))
+		k := yamlstrict.Join(prefix, yamlKey(f))
 		switch {
 		case f.Type.Kind() == reflect.Struct:
 			out = append(out, schemaKeys(f.Type, k)...)

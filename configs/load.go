@@ -90,21 +90,21 @@ func Parse(name string, data []byte) (*Config, error) {
 	var c Config
 	d.lines[""] = root.Line
 	d.decode(root, reflect.ValueOf(&c).Elem(), "")
-	if len(d.errs) == 0 && !d.set[""] {
+	if len(d.Errs) == 0 && !d.set[""] {
 		d.errorf(root.Line, "", "empty configuration; it needs at least vehicle and sensors")
 	}
-	if len(d.errs) > 0 {
+	if len(d.Errs) > 0 {
 		// Type and key errors first: validating half-decoded values would
 		// add follow-on messages that are not the user's mistakes.
-		sortErrors(d.errs)
-		return nil, &ErrorList{Errors: d.errs}
+		d.Sort()
+		return nil, &ErrorList{Errors: d.Errs}
 	}
 	applyDefaults(&c, func(p string) bool { return d.set[p] })
 	v := validator{c: &c, d: d}
 	v.run()
-	if len(d.errs) > 0 {
-		sortErrors(d.errs)
-		return nil, &ErrorList{Errors: d.errs}
+	if len(d.Errs) > 0 {
+		d.Sort()
+		return nil, &ErrorList{Errors: d.Errs}
 	}
 	return &c, nil
 }

@@ -47,7 +47,7 @@ func parentPath(p string) string {
 
 func (v *validator) fail(path, format string, args ...any) {
 	line, col := v.place(path)
-	v.d.errorAt(line, col, path, format, args...)
+	v.d.Add(line, col, path, format, args...)
 }
 
 func sensorPath(i int, key string) string {
