@@ -3,62 +3,27 @@ package scenario
 import (
 	"fmt"
 	"math"
-	"sort"
 	"strconv"
 	"strings"
 
 	"gopkg.in/yaml.v3"
+
+	"github.com/godwit-fusion/godwit/configs/yamlstrict"
 )
 
-// Error is one problem of a scenario file, located by file and line and named
-// by the key path (e.g. targets[2].speed).
-type Error struct {
-	File string
-	Line int // 1-based; 0 when the problem has no place in the file
-	Path string
-	Msg  string
-}
+// origin prefixes every scenario message with "scenario".
+type origin struct{}
 
-// Error formats as "scenario: FILE:LINE: PATH MSG".
-func (e *Error) Error() string {
-	var b strings.Builder
-	b.WriteString("scenario: ")
-	b.WriteString(e.File)
-	if e.Line > 0 {
-		fmt.Fprintf(&b, ":%d", e.Line)
-	}
-	b.WriteString(": ")
-	if e.Path != "" {
-		b.WriteString(e.Path)
-		b.WriteByte(' ')
-	}
-	b.WriteString(e.Msg)
-	return b.String()
-}
+func (origin) Prefix() string { return "scenario" }
+
+// Error is one problem of a scenario file, located by file and line and named
+// by the key path (e.g. targets[2].speed). It formats as
+// "scenario: FILE:LINE: PATH MSG".
+type Error = yamlstrict.Error[origin]
 
 // ErrorList is every problem found in one scenario file, in file order, so a
 // person fixes them all in one pass.
-type ErrorList struct {
-	Errors []*Error
-}
-
-// Error joins the problems one per line.
-func (l *ErrorList) Error() string {
-	s := make([]string, len(l.Errors))
-	for i, e := range l.Errors {
-		s[i] = e.Error()
-	}
-	return strings.Join(s, "\n")
-}
-
-// Unwrap exposes the single problems to errors.As.
-func (l *ErrorList) Unwrap() []error {
-	out := make([]error, len(l.Errors))
-	for i, e := range l.Errors {
-		out[i] = e
-	}
-	return out
-}
+type ErrorList = yamlstrict.ErrorList[origin]
 
 // maxNodes bounds the work of one decode: aliases can make a small file
 // expand exponentially, and no honest scenario comes near this many values.
@@ -68,41 +33,23 @@ const maxNodes = 200000
 // (motion kinds) and a mapping keyed by sensor name, and every value needs
 // its line for the messages.
 type decoder struct {
-	file   string
-	errs   []*Error
-	budget int
-	over   bool
+	yamlstrict.Doc[origin]
+}
+
+func newDecoder(file string) *decoder {
+	return &decoder{yamlstrict.Doc[origin]{File: file, MaxNodes: maxNodes}}
 }
 
 func (d *decoder) errorf(line int, path, format string, a ...any) {
-	d.errs = append(d.errs, &Error{File: d.file, Line: line, Path: path, Msg: fmt.Sprintf(format, a...)})
+	d.Add(line, 0, path, format, a...)
 }
 
 func (d *decoder) list() error {
-	if len(d.errs) == 0 {
+	if len(d.Errs) == 0 {
 		return nil
 	}
-	sort.SliceStable(d.errs, func(i, j int) bool { return d.errs[i].Line < d.errs[j].Line })
-	return &ErrorList{Errors: d.errs}
-}
-
-// resolve follows aliases and charges the node budget.
-func (d *decoder) resolve(n *yaml.Node) *yaml.Node {
-	for hops := 0; n != nil && n.Kind == yaml.AliasNode; hops++ {
-		if hops > 100 {
-			return nil
-		}
-		n = n.Alias
-	}
-	d.budget--
-	if d.budget < 0 {
-		if !d.over {
-			d.over = true
-			d.errorf(0, "", "more than %d YAML values (alias expansion?); refusing to decode", maxNodes)
-		}
-		return nil
-	}
-	return n
+	d.Sort()
+	return &ErrorList{Errors: d.Errs}
 }
 
 func describe(n *yaml.Node) string {
@@ -122,13 +69,6 @@ func describe(n *yaml.Node) string {
 		return v
 	}
 	return "an unsupported YAML value"
-}
-
-func join(path, key string) string {
-	if path == "" {
-		return key
-	}
-	return path + "." + key
 }
 
 // field is one key of a mapping with its value node.
@@ -157,7 +97,7 @@ func (m *mapping) get(key string) *yaml.Node {
 // any key, for the sensors mapping). Unknown and repeated keys are reported;
 // merge keys (<<) are refused because they hide where a value came from.
 func (d *decoder) mapping(n *yaml.Node, path string, allowed []string) *mapping {
-	n = d.resolve(n)
+	n = d.Resolve(n)
 	if n == nil {
 		return nil
 	}
@@ -173,7 +113,7 @@ func (d *decoder) mapping(n *yaml.Node, path string, allowed []string) *mapping 
 	}
 	m := &mapping{line: n.Line, path: path, byKey: map[string]*yaml.Node{}}
 	for i := 0; i+1 < len(n.Content); i += 2 {
-		k := d.resolve(n.Content[i])
+		k := d.Resolve(n.Content[i])
 		if k == nil {
 			return m
 		}
@@ -200,7 +140,7 @@ func (d *decoder) mapping(n *yaml.Node, path string, allowed []string) *mapping 
 			continue
 		}
 		if _, dup := m.byKey[name]; dup {
-			d.errorf(k.Line, join(path, name), "is given twice")
+			d.errorf(k.Line, yamlstrict.Join(path, name), "is given twice")
 			continue
 		}
 		m.byKey[name] = n.Content[i+1]
@@ -226,43 +166,20 @@ func closest(s string, allowed []string) string {
 		if len(s) >= 3 && strings.HasPrefix(a, s) {
 			return a
 		}
-		if d := editDistance(s, a); d < bestD {
+		if d := yamlstrict.EditDistance(s, a); d < bestD {
 			best, bestD = a, d
 		}
 	}
 	return best
 }
 
-// editDistance is the Levenshtein distance (Levenshtein 1966), two rows.
-func editDistance(a, b string) int {
-	prev := make([]int, len(b)+1)
-	cur := make([]int, len(b)+1)
-	for j := range prev {
-		prev[j] = j
-	}
-	for i := 1; i <= len(a); i++ {
-		cur[0] = i
-		for j := 1; j <= len(b); j++ {
-			cost := 1
-			if a[i-1] == b[j-1] {
-				cost = 0
-			}
-			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
-		}
-		prev, cur = cur, prev
-	}
-	return prev[len(b)]
-}
-
-func isNull(n *yaml.Node) bool { return n.Kind == yaml.ScalarNode && n.Tag == "!!null" }
-
 // scalar returns n resolved when it is a non-null scalar, reporting otherwise.
 func (d *decoder) scalar(n *yaml.Node, path, want string) *yaml.Node {
-	n = d.resolve(n)
+	n = d.Resolve(n)
 	if n == nil {
 		return nil
 	}
-	if n.Kind != yaml.ScalarNode || isNull(n) {
+	if n.Kind != yaml.ScalarNode || yamlstrict.IsNull(n) {
 		d.errorf(n.Line, path, "must be %s, got %s", want, describe(n))
 		return nil
 	}
@@ -309,7 +226,7 @@ func (d *decoder) numIn(n *yaml.Node, path string, lo, hi float64, rangeWords st
 		return 0, false
 	}
 	if v < lo || v > hi {
-		d.errorf(d.resolve(n).Line, path, "is %s, must be %s", fmtNum(v), rangeWords)
+		d.errorf(d.Resolve(n).Line, path, "is %s, must be %s", fmtNum(v), rangeWords)
 		return 0, false
 	}
 	return v, true
@@ -347,7 +264,7 @@ func (d *decoder) boolean(n *yaml.Node, path string) (bool, bool) {
 
 // seq reads n as a list and returns its items.
 func (d *decoder) seq(n *yaml.Node, path string) ([]*yaml.Node, int, bool) {
-	n = d.resolve(n)
+	n = d.Resolve(n)
 	if n == nil {
 		return nil, 0, false
 	}

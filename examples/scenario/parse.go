@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"github.com/godwit-fusion/godwit/configs"
+	"github.com/godwit-fusion/godwit/configs/yamlstrict"
 	"github.com/godwit-fusion/godwit/examples/scenarios"
 	"gopkg.in/yaml.v3"
 )
@@ -95,7 +96,7 @@ func Open(nameOrPath string) (*Scenario, error) {
 // looked up ("" allows only shipped config names). On any problem it returns
 // nil and an *ErrorList with every problem found, each with file:line.
 func Parse(file string, data []byte, dir string) (*Scenario, error) {
-	d := &decoder{file: file, budget: maxNodes}
+	d := newDecoder(file)
 	var doc yaml.Node
 	if err := yaml.Unmarshal(data, &doc); err != nil {
 		d.errorf(yamlErrLine(err), "", "is not valid YAML: %s", yamlErrText(err))
@@ -227,7 +228,7 @@ func (d *decoder) route(m *mapping, path string, loopDefault bool) *Path {
 		d.errorf(m.line, path, "needs waypoints: [[x, y], ...] in site metres")
 		return nil
 	}
-	items, ln, ok := d.seq(wn, join(path, "waypoints"))
+	items, ln, ok := d.seq(wn, yamlstrict.Join(path, "waypoints"))
 	if !ok {
 		return nil
 	}
@@ -240,12 +241,12 @@ func (d *decoder) route(m *mapping, path string, loopDefault bool) *Path {
 	}
 	radius := 0.0
 	if n := m.get("corner_radius"); n != nil {
-		radius, ok = d.numIn(n, join(path, "corner_radius"), 0, 1e4, "0..10000 m")
+		radius, ok = d.numIn(n, yamlstrict.Join(path, "corner_radius"), 0, 1e4, "0..10000 m")
 		good = good && ok
 	}
 	loop := loopDefault
 	if n := m.get("loop"); n != nil {
-		loop, ok = d.boolean(n, join(path, "loop"))
+		loop, ok = d.boolean(n, yamlstrict.Join(path, "loop"))
 		good = good && ok
 	}
 	if !good {
@@ -253,7 +254,7 @@ func (d *decoder) route(m *mapping, path string, loopDefault bool) *Path {
 	}
 	p, err := newPath(pts, radius, loop)
 	if err != nil {
-		d.errorf(ln, join(path, "waypoints"), "%v", err)
+		d.errorf(ln, yamlstrict.Join(path, "waypoints"), "%v", err)
 		return nil
 	}
 	return p
@@ -306,12 +307,12 @@ func (d *decoder) targets(n *yaml.Node, sc *Scenario) {
 		}
 		tg := Target{}
 		if idn := m.get("id"); idn != nil {
-			if s, ok := d.str(idn, join(path, "id")); ok {
+			if s, ok := d.str(idn, yamlstrict.Join(path, "id")); ok {
 				switch prev, dup := seen[s]; {
 				case s == "":
-					d.errorf(line(idn), join(path, "id"), "is empty")
+					d.errorf(line(idn), yamlstrict.Join(path, "id"), "is empty")
 				case dup:
-					d.errorf(line(idn), join(path, "id"), "%q is already used by %s", s, prev)
+					d.errorf(line(idn), yamlstrict.Join(path, "id"), "%q is already used by %s", s, prev)
 				default:
 					seen[s] = path
 				}
@@ -321,15 +322,15 @@ func (d *decoder) targets(n *yaml.Node, sc *Scenario) {
 			d.errorf(m.line, path, "needs an id (a short name such as p1, used in truth.jsonl)")
 		}
 		if cn := m.get("class"); cn != nil {
-			tg.Class, _ = d.str(cn, join(path, "class"))
+			tg.Class, _ = d.str(cn, yamlstrict.Join(path, "class"))
 		}
 		if sn := m.get("start_s"); sn != nil {
-			tg.StartS, _ = d.numIn(sn, join(path, "start_s"), 0, maxDurationS, "0..3600 s")
+			tg.StartS, _ = d.numIn(sn, yamlstrict.Join(path, "start_s"), 0, maxDurationS, "0..3600 s")
 		}
 		if en := m.get("end_s"); en != nil {
-			if v, ok := d.numIn(en, join(path, "end_s"), 0, maxDurationS, "0..3600 s"); ok {
+			if v, ok := d.numIn(en, yamlstrict.Join(path, "end_s"), 0, maxDurationS, "0..3600 s"); ok {
 				if v <= tg.StartS {
-					d.errorf(line(en), join(path, "end_s"), "is %s, must be after start_s %s", fmtNum(v), fmtNum(tg.StartS))
+					d.errorf(line(en), yamlstrict.Join(path, "end_s"), "is %s, must be after start_s %s", fmtNum(v), fmtNum(tg.StartS))
 				}
 				tg.EndS = v
 			}
@@ -339,20 +340,20 @@ func (d *decoder) targets(n *yaml.Node, sc *Scenario) {
 			d.errorf(m.line, path, "needs motion: path, cv or turn")
 			continue
 		}
-		kind, ok := d.str(mn, join(path, "motion"))
+		kind, ok := d.str(mn, yamlstrict.Join(path, "motion"))
 		if !ok {
 			continue
 		}
 		used, known := motionKeys[kind]
 		if !known {
-			d.errorf(line(mn), join(path, "motion"), "is %q, must be path, cv or turn", kind)
+			d.errorf(line(mn), yamlstrict.Join(path, "motion"), "is %q, must be path, cv or turn", kind)
 			continue
 		}
 		tg.Motion = kind
 		for _, f := range m.fields {
 			if slices.Contains(motionKeys[MotionPath], f.key) || slices.Contains(motionKeys[MotionCV], f.key) || slices.Contains(motionKeys[MotionTurn], f.key) {
 				if !slices.Contains(used, f.key) {
-					d.errorf(f.line, join(path, f.key), "does not apply to motion %s (it uses %s)", kind, strings.Join(used, ", "))
+					d.errorf(f.line, yamlstrict.Join(path, f.key), "does not apply to motion %s (it uses %s)", kind, strings.Join(used, ", "))
 				}
 			}
 		}
@@ -367,31 +368,31 @@ func (d *decoder) targets(n *yaml.Node, sc *Scenario) {
 		case MotionPath:
 			tg.Path = d.route(m, path, false)
 			if v := need("speed"); v != nil {
-				tg.Speed, _ = d.numIn(v, join(path, "speed"), 0, 60, "0..60 m/s")
+				tg.Speed, _ = d.numIn(v, yamlstrict.Join(path, "speed"), 0, 60, "0..60 m/s")
 			}
 			if v := m.get("start_m"); v != nil {
-				tg.StartM, _ = d.numIn(v, join(path, "start_m"), 0, 1e6, "≥ 0 m")
+				tg.StartM, _ = d.numIn(v, yamlstrict.Join(path, "start_m"), 0, 1e6, "≥ 0 m")
 			}
 		case MotionCV:
 			if v := need("pos"); v != nil {
-				tg.Pos, _ = d.point(v, join(path, "pos"))
+				tg.Pos, _ = d.point(v, yamlstrict.Join(path, "pos"))
 			}
 			if v := need("vel"); v != nil {
-				tg.Vel, _ = d.point(v, join(path, "vel"))
+				tg.Vel, _ = d.point(v, yamlstrict.Join(path, "vel"))
 			}
 		case MotionTurn:
 			if v := need("pos"); v != nil {
-				tg.Pos, _ = d.point(v, join(path, "pos"))
+				tg.Pos, _ = d.point(v, yamlstrict.Join(path, "pos"))
 			}
 			if v := need("speed"); v != nil {
-				tg.Speed, _ = d.numIn(v, join(path, "speed"), 0, 60, "0..60 m/s")
+				tg.Speed, _ = d.numIn(v, yamlstrict.Join(path, "speed"), 0, 60, "0..60 m/s")
 			}
 			if v := need("heading_deg"); v != nil {
-				h, _ := d.numIn(v, join(path, "heading_deg"), -360, 360, "within ±360°")
+				h, _ := d.numIn(v, yamlstrict.Join(path, "heading_deg"), -360, 360, "within ±360°")
 				tg.Heading = degToRad(h)
 			}
 			if v := need("turn_rate_deg_s"); v != nil {
-				w, _ := d.numIn(v, join(path, "turn_rate_deg_s"), -180, 180, "within ±180 °/s")
+				w, _ := d.numIn(v, yamlstrict.Join(path, "turn_rate_deg_s"), -180, 180, "within ±180 °/s")
 				tg.TurnRate = degToRad(w)
 			}
 		}
@@ -427,19 +428,19 @@ func (d *decoder) crowds(n *yaml.Node, sc *Scenario) {
 		var area []float64
 		speed := []float64{0.8, 1.6}
 		if v := m.get("prefix"); v != nil {
-			prefix, ok = d.str(v, join(path, "prefix"))
+			prefix, ok = d.str(v, yamlstrict.Join(path, "prefix"))
 			good = good && ok
 		} else {
 			d.errorf(m.line, path, "needs prefix (ids are prefix1, prefix2, ...)")
 			good = false
 		}
 		if v := m.get("class"); v != nil {
-			class, _ = d.str(v, join(path, "class"))
+			class, _ = d.str(v, yamlstrict.Join(path, "class"))
 		}
 		if v := m.get("count"); v != nil {
-			count, ok = d.integer(v, join(path, "count"))
+			count, ok = d.integer(v, yamlstrict.Join(path, "count"))
 			if ok && (count < 1 || count > maxTargets) {
-				d.errorf(line(v), join(path, "count"), "is %d, must be 1..%d", count, maxTargets)
+				d.errorf(line(v), yamlstrict.Join(path, "count"), "is %d, must be 1..%d", count, maxTargets)
 				ok = false
 			}
 			good = good && ok
@@ -448,20 +449,20 @@ func (d *decoder) crowds(n *yaml.Node, sc *Scenario) {
 			good = false
 		}
 		if v := m.get("legs"); v != nil {
-			legs, ok = d.integer(v, join(path, "legs"))
+			legs, ok = d.integer(v, yamlstrict.Join(path, "legs"))
 			if ok && (legs < 2 || legs > 50) {
-				d.errorf(line(v), join(path, "legs"), "is %d, must be 2..50", legs)
+				d.errorf(line(v), yamlstrict.Join(path, "legs"), "is %d, must be 2..50", legs)
 				ok = false
 			}
 			good = good && ok
 		}
 		if v := m.get("area"); v != nil {
-			area, ok = d.nums(v, join(path, "area"), 4, "an area [x_min, y_min, x_max, y_max]")
+			area, ok = d.nums(v, yamlstrict.Join(path, "area"), 4, "an area [x_min, y_min, x_max, y_max]")
 			if ok && slices.ContainsFunc(area, func(x float64) bool { return math.Abs(x) > maxCoord }) {
-				d.errorf(line(v), join(path, "area"), "reaches beyond ±%g m", maxCoord)
+				d.errorf(line(v), yamlstrict.Join(path, "area"), "reaches beyond ±%g m", maxCoord)
 				ok = false
 			} else if ok && (area[2]-area[0] < 1 || area[3]-area[1] < 1) {
-				d.errorf(line(v), join(path, "area"), "must have x_max and y_max at least 1 m above x_min and y_min")
+				d.errorf(line(v), yamlstrict.Join(path, "area"), "must have x_max and y_max at least 1 m above x_min and y_min")
 				ok = false
 			}
 			good = good && ok
@@ -470,9 +471,9 @@ func (d *decoder) crowds(n *yaml.Node, sc *Scenario) {
 			good = false
 		}
 		if v := m.get("speed"); v != nil {
-			speed, ok = d.nums(v, join(path, "speed"), 2, "a speed range [min, max]")
+			speed, ok = d.nums(v, yamlstrict.Join(path, "speed"), 2, "a speed range [min, max]")
 			if ok && (speed[0] < 0 || speed[1] < speed[0] || speed[1] > 60) {
-				d.errorf(line(v), join(path, "speed"), "must be [min, max] with 0 ≤ min ≤ max ≤ 60 m/s")
+				d.errorf(line(v), yamlstrict.Join(path, "speed"), "must be [min, max] with 0 ≤ min ≤ max ≤ 60 m/s")
 				ok = false
 			}
 			good = good && ok
@@ -484,7 +485,7 @@ func (d *decoder) crowds(n *yaml.Node, sc *Scenario) {
 		for k := 1; k <= int(count); k++ {
 			id := fmt.Sprintf("%s%d", prefix, k)
 			if ids[id] {
-				d.errorf(m.line, join(path, "prefix"), "makes id %q, which is already used", id)
+				d.errorf(m.line, yamlstrict.Join(path, "prefix"), "makes id %q, which is already used", id)
 				break
 			}
 			ids[id] = true
@@ -526,15 +527,15 @@ func (d *decoder) sensors(n *yaml.Node, sc *Scenario) {
 			for i, s := range cfg.Sensors {
 				names[i] = s.Name
 			}
-			d.errorf(f.line, join("sensors", f.key), "is not a sensor of config %s (its sensors: %s)", sc.ConfigRef, strings.Join(names, ", "))
+			d.errorf(f.line, yamlstrict.Join("sensors", f.key), "is not a sensor of config %s (its sensors: %s)", sc.ConfigRef, strings.Join(names, ", "))
 			continue
 		}
-		d.sensor(f.val, join("sensors", f.key), &sc.Sensors[idx])
+		d.sensor(f.val, yamlstrict.Join("sensors", f.key), &sc.Sensors[idx])
 	}
 	for i := range sc.Sensors {
 		s := &sc.Sensors[i]
 		if s.Malformed.Count > 0 && s.Malformed.AtS >= sc.Duration {
-			d.errorf(s.Malformed.line, join("sensors", s.Cfg.Name)+".malformed.at_s", "is %s s, after the end of the scenario (%s s)", fmtNum(s.Malformed.AtS), fmtNum(sc.Duration))
+			d.errorf(s.Malformed.line, yamlstrict.Join("sensors", s.Cfg.Name)+".malformed.at_s", "is %s s, after the end of the scenario (%s s)", fmtNum(s.Malformed.AtS), fmtNum(sc.Duration))
 		}
 	}
 }
@@ -568,7 +569,7 @@ func (d *decoder) sensor(n *yaml.Node, path string, s *Sensor) {
 	ego := configs.IsEgoKind(s.Cfg.Kind)
 	dim := configs.MeasDim(s.Cfg.Kind)
 	for _, f := range m.fields {
-		p := join(path, f.key)
+		p := yamlstrict.Join(path, f.key)
 		switch f.key {
 		case "p_detect", "clutter_per_scan", "max_range", "fov_deg":
 			if ego {
@@ -657,15 +658,15 @@ func (d *decoder) sensor(n *yaml.Node, path string, s *Sensor) {
 				continue
 			}
 			if v := bm.get("at_s"); v != nil {
-				s.Malformed.AtS, _ = d.numIn(v, join(p, "at_s"), 0, maxDurationS, "0..3600 s")
+				s.Malformed.AtS, _ = d.numIn(v, yamlstrict.Join(p, "at_s"), 0, maxDurationS, "0..3600 s")
 				s.Malformed.line = line(v)
 			} else {
 				d.errorf(bm.line, p, "needs at_s")
 			}
 			if v := bm.get("count"); v != nil {
-				if c, ok := d.integer(v, join(p, "count")); ok {
+				if c, ok := d.integer(v, yamlstrict.Join(p, "count")); ok {
 					if c < 1 || c > 1000 {
-						d.errorf(line(v), join(p, "count"), "is %d, must be 1..1000", c)
+						d.errorf(line(v), yamlstrict.Join(p, "count"), "is %d, must be 1..1000", c)
 					} else {
 						s.Malformed.Count = int(c)
 					}
