@@ -173,21 +173,16 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 	}
 
 	for {
-		if ctx.Err() != nil {
-			sum.Interrupted = true
-			break
-		}
-		err := rr.Next(&r)
+		err := nextRecord(ctx, rr, &r, log)
 		if err == io.EOF {
 			break
 		}
-		var le *transport.LineError
-		if errors.As(err, &le) {
-			log.Warn("malformed recording line", zap.Int("line", le.Line), zap.String("error", le.Msg))
-			continue
+		if err != nil && err == ctx.Err() {
+			sum.Interrupted = true
+			break
 		}
 		if err != nil {
-			return nil, fmt.Errorf("reading the recording: %w", err)
+			return nil, err
 		}
 		// Every measurement-shaped payload counts for the final stamp, as
 		// the v1 checker counts it: rejected ones, other topics, skipped
@@ -268,6 +263,25 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 	sum.Births, sum.Deletions, sum.FilterErrors = ec.Births, ec.Deletions, ec.FilterErrors
 	sum.NonFinite = st.NonFinite
 	return sum, nil
+}
+
+// nextRecord reads the next well-formed record into r, logging and skipping
+// malformed lines. It returns io.EOF at the end of the recording, ctx.Err()
+// once ctx is done (checked before every line), or the reader's fatal error.
+func nextRecord(ctx context.Context, rr *transport.RecordReader, r *transport.Record, log *zap.Logger) error {
+	for ctx.Err() == nil {
+		err := rr.Next(r)
+		var le *transport.LineError
+		if errors.As(err, &le) {
+			log.Warn("malformed recording line", zap.Int("line", le.Line), zap.String("error", le.Msg))
+			continue
+		}
+		if err != nil && err != io.EOF {
+			return fmt.Errorf("reading the recording: %w", err)
+		}
+		return err
+	}
+	return ctx.Err()
 }
 
 // ceilMultiple is the smallest multiple of p at or after t (p > 0).

@@ -2,8 +2,6 @@ package daemon
 
 import (
 	"context"
-	"errors"
-	"fmt"
 	"io"
 	"strconv"
 	"time"
@@ -68,18 +66,13 @@ func Republish(ctx context.Context, rec io.Reader, pub Publisher, opt RepublishO
 		buf       []byte
 		lastWarn  time.Time
 	)
-	for ctx.Err() == nil {
-		err := rr.Next(&r)
-		if err == io.EOF {
+	for {
+		err := nextRecord(ctx, rr, &r, log)
+		if err == io.EOF || err != nil && err == ctx.Err() {
 			break
 		}
-		var le *transport.LineError
-		if errors.As(err, &le) {
-			log.Warn("malformed recording line", zap.Int("line", le.Line), zap.String("error", le.Msg))
-			continue
-		}
 		if err != nil {
-			return nil, fmt.Errorf("reading the recording: %w", err)
+			return nil, err
 		}
 		if len(opt.Topics) > 0 && !matchesAny(opt.Topics, r.Topic) {
 			sum.Skipped++
