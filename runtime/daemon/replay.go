@@ -133,9 +133,7 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 		clock      int64 // newest arrival time so far
 		nextTick   int64
 		nextHealth int64
-		wallStart  time.Time
-		paceNs     int64 // recorded time elapsed, gaps capped at maxCatchUpNs
-		prevRx     int64
+		pace       = pacer{speed: opt.Speed}
 		latestTNs  int64 // newest measurement time in the recording
 		haveLatest bool
 	)
@@ -197,22 +195,15 @@ func Replay(ctx context.Context, cfg *configs.Config, rec io.Reader, out ReplayO
 		}
 		if !started {
 			started = true
-			clock, prevRx, wallStart = r.RxNs, r.RxNs, time.Now()
+			clock = r.RxNs
+			pace.start(r.RxNs, time.Now())
 			nextTick = ceilMultiple(r.RxNs, max(period, 1))
 			nextHealth = ceilMultiple(r.RxNs, healthPeriodNs)
 			sum.FirstRxNs = r.RxNs
 		}
-		if opt.Speed > 0 {
-			// A long pause in the recording is cut short, as for output.
-			if d := r.RxNs - prevRx; d > 0 {
-				paceNs += min(d, maxCatchUpNs)
-			}
-			prevRx = r.RxNs
-			due := wallStart.Add(time.Duration(float64(paceNs) / opt.Speed))
-			if err := sleepUntil(ctx, due); err != nil {
-				sum.Interrupted = true
-				break
-			}
+		if err := pace.wait(ctx, r.RxNs); err != nil {
+			sum.Interrupted = true
+			break
 		}
 		if r.RxNs > clock {
 			clock = r.RxNs
@@ -282,6 +273,31 @@ func nextRecord(ctx context.Context, rr *transport.RecordReader, r *transport.Re
 		return err
 	}
 	return ctx.Err()
+}
+
+// pacer holds a recording to its recorded pace divided by speed: a record
+// is due at the first one's wall time plus the recorded time since, each
+// pause in the recording cut to maxCatchUpNs (as for output).
+type pacer struct {
+	speed     float64 // ≤ 0: as fast as possible
+	wallStart time.Time
+	prevRx    int64
+	elapsedNs int64
+}
+
+func (p *pacer) start(rx int64, wall time.Time) { p.prevRx, p.wallStart = rx, wall }
+
+// wait sleeps until the record received at rx is due; it returns ctx.Err()
+// when ctx ends first.
+func (p *pacer) wait(ctx context.Context, rx int64) error {
+	if p.speed <= 0 {
+		return nil
+	}
+	if d := rx - p.prevRx; d > 0 {
+		p.elapsedNs += min(d, maxCatchUpNs)
+	}
+	p.prevRx = rx
+	return sleepUntil(ctx, p.wallStart.Add(time.Duration(float64(p.elapsedNs)/p.speed)))
 }
 
 // ceilMultiple is the smallest multiple of p at or after t (p > 0).

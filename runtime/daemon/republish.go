@@ -55,16 +55,14 @@ func Republish(ctx context.Context, rec io.Reader, pub Publisher, opt RepublishO
 	rr := transport.NewRecordReader(rec, 0)
 	sum := &RepublishSummary{}
 	var (
-		r         transport.Record
-		started   bool
-		prevRx    int64
-		paceNs    int64
-		wallStart time.Time
-		offset    int64
-		parser    fastjson.Parser
-		arena     fastjson.Arena
-		buf       []byte
-		lastWarn  time.Time
+		r        transport.Record
+		started  bool
+		pace     = pacer{speed: opt.Speed}
+		offset   int64
+		parser   fastjson.Parser
+		arena    fastjson.Arena
+		buf      []byte
+		lastWarn time.Time
 	)
 	for {
 		err := nextRecord(ctx, rr, &r, log)
@@ -84,18 +82,12 @@ func Republish(ctx context.Context, rec io.Reader, pub Publisher, opt RepublishO
 		}
 		if !started {
 			started = true
-			prevRx, wallStart = r.RxNs, time.Now()
+			wallStart := time.Now()
+			pace.start(r.RxNs, wallStart)
 			offset = wallStart.UnixNano() - r.RxNs
 		}
-		if opt.Speed > 0 {
-			// As in Replay, a long pause in the recording is cut short.
-			if d := r.RxNs - prevRx; d > 0 {
-				paceNs += min(d, maxCatchUpNs)
-			}
-			prevRx = r.RxNs
-			if sleepUntil(ctx, wallStart.Add(time.Duration(float64(paceNs)/opt.Speed))) != nil {
-				break
-			}
+		if pace.wait(ctx, r.RxNs) != nil {
+			break
 		}
 		payload := r.Payload
 		if opt.Retime {
