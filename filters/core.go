@@ -82,14 +82,14 @@ func checkMeas(h MeasurementModel, Rs []float64) (int, error) {
 // the normalised gain K̄ = P_xz·Sy⁻ᵀ (n×m), so that the update is
 // x⁺ = x + K̄·Sy⁻¹·(z ⊖ ẑ) and P⁺ = P − K̄·K̄ᵀ.
 type innovation struct {
-	h        MeasurementModel
-	m, measCap  int
-	prepared bool
-	zhat     []float64 // m
-	Sy       []float64 // m×m
-	Kbar     []float64 // n×m
-	e, a     []float64 // m: residual, whitened residual
-	xnew     []float64 // n
+	h          MeasurementModel
+	m, measCap int
+	prepared   bool
+	zhat       []float64 // m
+	Sy         []float64 // m×m
+	Kbar       []float64 // n×m
+	e, a       []float64 // m: residual, whitened residual
+	xnew       []float64 // n
 }
 
 func (v *innovation) grow(n, m int) bool {
