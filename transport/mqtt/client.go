@@ -461,10 +461,66 @@ func Backoff(n int, min, max time.Duration, u float64) time.Duration {
 // the buffer may be reused; after a timeout it must not be written again.
 func (c *Client) Publish(topic string, payload []byte, qos byte, retain bool) error {
 	if !c.connected.Load() {
-		return errors.New("mqtt: not connected")
+		return errNotConnected
 	}
 	return c.wait(c.pc.Publish(topic, qos, retain, payload))
 }
+
+// Pending is a publish handed to the MQTT library and not yet known to be
+// complete. The zero Pending is complete with no error.
+type Pending struct {
+	tok paho.Token
+}
+
+// Done reports, without waiting, whether the publish has completed
+// (written for QoS 0, acknowledged for QoS 1/2, or failed).
+func (p Pending) Done() bool {
+	if p.tok == nil {
+		return true
+	}
+	select {
+	case <-p.tok.Done():
+		return true
+	default:
+		return false
+	}
+}
+
+// Err is the publish's outcome once Done reports true; nil before.
+func (p Pending) Err() error {
+	if !p.Done() {
+		return nil
+	}
+	if p.tok == nil {
+		return nil
+	}
+	return p.tok.Error()
+}
+
+// PublishAsync hands a message to the MQTT library and returns at once; the
+// error is only for a message that could not be handed over (not
+// connected). paho keeps the payload slice until the publish completes, so
+// the caller must not write into payload until Wait has returned nil, and
+// never again after Wait returned an error (a timed-out message may still
+// be sent, or resent from the session store). Messages published from one
+// goroutine go out in the order of the calls.
+func (c *Client) PublishAsync(topic string, payload []byte, qos byte, retain bool) (Pending, error) {
+	if !c.connected.Load() {
+		return Pending{}, errNotConnected
+	}
+	return Pending{tok: c.pc.Publish(topic, qos, retain, payload)}, nil
+}
+
+// Wait blocks until p completes, at most the connect timeout (or until the
+// client is closed), and returns its error.
+func (c *Client) Wait(p Pending) error {
+	if p.tok == nil {
+		return nil
+	}
+	return c.wait(p.tok)
+}
+
+var errNotConnected = errors.New("mqtt: not connected")
 
 // Connected reports whether the client is connected now.
 func (c *Client) Connected() bool { return c.connected.Load() }
