@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -96,6 +97,27 @@ type Daemon struct {
 	pubSuppressed uint64
 	lat           latencies
 	healthVersion uint64 // engine.HealthState's version at the last health message
+	out           outRing
+}
+
+// outRing holds the tracks messages handed to the MQTT client and not yet
+// complete, oldest first. The engine goroutine does not wait for each
+// broker acknowledgement (issue 7): it waits only when every slot is in
+// flight, which is the back-pressure on a slow broker. Each slot owns a
+// buffer that is never written while paho may still read it.
+type outRing struct {
+	slots   [outSlots]outSlot
+	head, n int
+}
+
+// outSlots bounds the tracks messages in flight: enough to cover a
+// round trip to a local broker at a few thousand scans per second, few
+// enough that a stop waits for little.
+const outSlots = 16
+
+type outSlot struct {
+	buf     []byte
+	pending mqtt.Pending
 }
 
 // latencies keeps the ingest-to-publish latency of the last latencyWindow
@@ -170,6 +192,9 @@ func New(opts Options) (*Daemon, error) {
 		qos:    byte(cfg.Broker.QoS),
 		events: make(chan mqtt.Event, 64),
 		lat:    latencies{pending: make([]int64, 0, 4096)},
+	}
+	for i := range d.out.slots {
+		d.out.slots[i].buf = make([]byte, 0, cap(pipe.tbuf))
 	}
 	d.metrics = newMetrics(d)
 	d.lat.obs = d.metrics.latency
@@ -285,6 +310,7 @@ func (d *Daemon) Run(ctx context.Context) error {
 		case e := <-d.events:
 			d.onEvent(e)
 		}
+		d.harvest()
 		// A change of state or alerts goes out at once, not at the next
 		// health tick (issue 5).
 		if _, v := d.pipe.Engine().HealthState(); v != d.healthVersion {
@@ -305,6 +331,7 @@ func (d *Daemon) stop() {
 		d.advance(now.UnixNano())
 	}
 	d.publishHealth(now)
+	d.waitOutput()   // every tracks message in flight completes before "offline"
 	d.client.Close() // publishes "offline" (retained) while connected
 	d.snapshot()
 	if d.ep != nil {
@@ -346,8 +373,80 @@ func (d *Daemon) advance(nowNs int64) {
 		return
 	}
 	d.metrics.tracksOut(d.pipe.LastTracks(), time.Since(t0))
-	if d.publish(kindTracks, d.cfg.Output.TracksTopic, b, false) {
+	if d.publishTracks(b) {
+		// Latency is taken at the hand-off to the MQTT client, the last
+		// step the daemon controls; the acknowledgement is the broker's.
 		d.lat.published(time.Now().UnixNano())
+	}
+}
+
+// publishTracks hands b (the pipeline's tracks buffer) to the MQTT client
+// without waiting for the broker. The buffer moves into a ring slot and the
+// pipeline gets the slot's previous buffer, once that publish is complete.
+func (d *Daemon) publishTracks(b []byte) bool {
+	r := &d.out
+	d.harvest()
+	if r.n == len(r.slots) {
+		d.finish(true) // back-pressure: the oldest publish must complete
+	}
+	s := &r.slots[(r.head+r.n)%len(r.slots)]
+	p, err := d.client.PublishAsync(d.cfg.Output.TracksTopic, b, d.qos, false)
+	if err != nil {
+		// Not handed over: the pipeline keeps its buffer.
+		d.publishFailed(kindTracks, d.cfg.Output.TracksTopic, err)
+		return false
+	}
+	// The slot is free (its publish was finished), so its buffer is ours.
+	d.pipe.tbuf, s.buf = s.buf[:0], b
+	s.pending = p
+	r.n++
+	return true
+}
+
+// harvest counts the tracks publishes that have completed, oldest first,
+// without waiting.
+func (d *Daemon) harvest() {
+	for d.out.n > 0 && d.out.slots[d.out.head].pending.Done() {
+		d.finish(false)
+	}
+}
+
+// finish counts the oldest publish in flight, waiting for it when wait is
+// set, and frees its slot. A failed or timed-out publish may still be held
+// (or resent from the session store) by paho: its buffer is given up.
+func (d *Daemon) finish(wait bool) {
+	r := &d.out
+	s := &r.slots[r.head]
+	var err error
+	switch {
+	case s.pending.Done():
+		err = s.pending.Err()
+	case wait:
+		err = d.client.Wait(s.pending)
+	default:
+		err = errAbandoned
+	}
+	if err == nil {
+		d.published++
+		d.metrics.published[kindTracks].Inc()
+	} else {
+		d.publishFailed(kindTracks, d.cfg.Output.TracksTopic, err)
+		s.buf = make([]byte, 0, cap(s.buf))
+	}
+	s.pending = mqtt.Pending{}
+	r.head = (r.head + 1) % len(r.slots)
+	r.n--
+}
+
+var errAbandoned = errors.New("daemon: tracks publish not complete when the daemon stopped without a connection")
+
+// waitOutput waits for every tracks publish in flight, in order. Without a
+// connection (a persistent session keeps paho's tokens open until a
+// reconnect that will not come) what has not completed is counted as
+// failed rather than waited for, one connect timeout per message.
+func (d *Daemon) waitOutput() {
+	for d.out.n > 0 {
+		d.finish(d.client.Connected())
 	}
 }
 
@@ -358,11 +457,17 @@ func (d *Daemon) publish(kind int, topic string, b []byte, retain bool) bool {
 		d.metrics.published[kind].Inc()
 		return true
 	}
-	d.publishErrors++
-	d.metrics.publishErrors[kind].Inc()
 	// A timed-out publish may still be queued inside the MQTT library with
 	// our buffer; never write into that buffer again.
 	d.pipe.releaseBuffers()
+	d.publishFailed(kind, topic, err)
+	return false
+}
+
+// publishFailed counts a publish that failed and logs it, rate-limited.
+func (d *Daemon) publishFailed(kind int, topic string, err error) {
+	d.publishErrors++
+	d.metrics.publishErrors[kind].Inc()
 	if now := time.Now(); now.Sub(d.pubLimit) >= time.Second {
 		d.log.Warn("publish failed", zap.String("topic", topic), zap.Error(err),
 			zap.Uint64("suppressed_since_last", d.pubSuppressed))
@@ -370,7 +475,6 @@ func (d *Daemon) publish(kind int, topic string, b []byte, retain bool) bool {
 	} else {
 		d.pubSuppressed++
 	}
-	return false
 }
 
 // reportDrops hands the queue's new drops to the engine, whose overrun

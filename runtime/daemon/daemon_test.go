@@ -469,3 +469,115 @@ func TestDaemonReportsQueueOverflow(t *testing.T) {
 		t.Fatalf("dropped %d, accepted %d; want 6 and 4", st.QueueDropped, st.Pipeline.Accepted)
 	}
 }
+
+// With rate_hz 0 every processed scan is published without the engine
+// goroutine waiting for each acknowledgement (issue 7). A burst of scans
+// must still come out complete and in order (QoS 1 on one topic keeps
+// order, MQTT 3.1.1 §4.6), and a graceful stop must wait for every tracks
+// message in flight before "offline": everything counted as published
+// reaches the subscriber, nothing is counted as failed.
+func TestDaemonPerScanPublishesInOrder(t *testing.T) {
+	for name, url := range brokers(t) {
+		t.Run(name, func(t *testing.T) {
+			defer goleak.VerifyNone(t, goleak.IgnoreCurrent())
+			if url == "" {
+				b, err := broker.Start(broker.Config{})
+				if err != nil {
+					t.Fatal(err)
+				}
+				defer b.Close()
+				url = b.URL()
+			}
+			cfg := liveConfig(t, url)
+			cfg.Output.RateHz = 0
+			cfg.Metrics.Listen = ""
+			watch := newPeer(t, url, cfg.Broker.ClientID+"-watch")
+			defer watch.close()
+			watch.sub(cfg.Output.TracksTopic)
+			watch.sub(cfg.Output.StatusTopic)
+			defer func() {
+				watch.pub(cfg.Output.StatusTopic, nil, true)
+				watch.pub(cfg.Output.HealthTopic, nil, true)
+			}()
+			d, err := New(Options{Config: cfg})
+			if err != nil {
+				t.Fatal(err)
+			}
+			ctx, cancel := context.WithCancel(context.Background())
+			done := make(chan error, 1)
+			go func() { done <- d.Run(ctx) }()
+			if _, ok := watch.await(5*time.Second, func(m peerMsg) bool {
+				return m.topic == cfg.Output.StatusTopic && string(m.payload) == "online"
+			}); !ok {
+				cancel()
+				<-done
+				t.Fatal("no online status within 5 s")
+			}
+			// The burst goes out without waiting for acknowledgements, so
+			// the daemon's publishes overlap.
+			pub := newPeer(t, url, cfg.Broker.ClientID+"-sensors")
+			scene := gatesim.NewScene(cfg, time.Now().UnixNano(), 1)
+			const scans = 300
+			var toks []paho.Token
+			for seq := uint64(1); seq <= scans; seq++ {
+				i := int(seq) % len(cfg.Sensors)
+				toks = append(toks, pub.c.Publish(cfg.Sensors[i].Topic, 1, false, scene.Payload(i, seq, time.Now().UnixNano())))
+			}
+			for _, tok := range toks {
+				tok.WaitTimeout(5 * time.Second)
+			}
+			pub.close()
+			// Let the queue take the burst, then stop: the stop drains what
+			// is queued and waits for the publishes in flight.
+			deadline := time.Now().Add(5 * time.Second)
+			for d.Stats().QueuePushed < scans && time.Now().Before(deadline) {
+				time.Sleep(10 * time.Millisecond)
+			}
+			cancel()
+			if err := <-done; err != nil {
+				t.Fatalf("Run: %v", err)
+			}
+			st := d.Stats()
+			if st.PublishErrors != 0 {
+				t.Errorf("%d publish errors", st.PublishErrors)
+			}
+			tracksOut := st.Pipeline.TracksOut
+			if tracksOut < scans/2 {
+				t.Fatalf("only %d tracks messages for %d scans; stats %+v", tracksOut, scans, st)
+			}
+			// Published counts health too; every tracks message is among it.
+			if st.Published < tracksOut {
+				t.Errorf("published %d < tracks encoded %d", st.Published, tracksOut)
+			}
+			// "offline" comes after the last tracks message on the same
+			// connection, so once it is here every tracks message is too.
+			if _, ok := watch.await(5*time.Second, func(m peerMsg) bool {
+				return m.topic == cfg.Output.StatusTopic && string(m.payload) == "offline"
+			}); !ok {
+				t.Fatal("no offline status after the stop")
+			}
+			watch.mu.Lock()
+			defer watch.mu.Unlock()
+			var got uint64
+			lastSeq, lastT := uint64(0), int64(0)
+			for _, m := range watch.msgs {
+				if m.topic != cfg.Output.TracksTopic {
+					continue
+				}
+				tm, ok := decodeTracks(m.payload)
+				if !ok {
+					t.Fatalf("tracks message %d is not JSON: %.200s", got, m.payload)
+				}
+				if got > 0 && (tm.Seq <= lastSeq || tm.TNs < lastT) {
+					t.Fatalf("tracks message %d out of order: seq %d t_ns %d after seq %d t_ns %d",
+						got, tm.Seq, tm.TNs, lastSeq, lastT)
+				}
+				lastSeq, lastT = tm.Seq, tm.TNs
+				got++
+			}
+			if got != tracksOut {
+				t.Errorf("subscriber got %d tracks messages, daemon encoded %d", got, tracksOut)
+			}
+		})
+	}
+}

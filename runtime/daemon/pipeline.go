@@ -266,10 +266,11 @@ func (p *Pipeline) FlushAt(tNs int64) ([]byte, bool) {
 	return p.encodeTracks(), true
 }
 
-// releaseBuffers gives up the output buffers after a publish that may still
-// hold one (a timeout inside the MQTT library); the next message allocates.
+// releaseBuffers gives up the health buffer after a publish that may still
+// hold it (a timeout inside the MQTT library); the next message allocates.
+// The tracks buffer is never in flight: the daemon swaps it with a free
+// slot of its output ring.
 func (p *Pipeline) releaseBuffers() {
-	p.tbuf = make([]byte, 0, cap(p.tbuf))
 	p.hbuf = make([]byte, 0, cap(p.hbuf))
 }
 
