@@ -29,6 +29,9 @@ func TestStartRestartClose(t *testing.T) {
 	} else {
 		c.Close()
 	}
+	// mochi-mqtt's Server.Close races with a connection its listener is still
+	// accepting (seen with -race); let the probe connection settle first.
+	time.Sleep(100 * time.Millisecond)
 	if err := b.Close(); err != nil {
 		t.Fatal(err)
 	}
