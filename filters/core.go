@@ -192,3 +192,25 @@ func (v *innovation) LogDetInnovation() float64 {
 	}
 	return 2 * s
 }
+
+// update is the Update step both square-root filters share: x ← x + K̄·Sy⁻¹·(z ⊖ ẑ)
+// and S ← Spost, both prepared by Prepare. On error the state is unchanged.
+func (c *core) update(v *innovation, Spost, z []float64) (float64, error) {
+	if !v.prepared {
+		return 0, ErrNotPrepared
+	}
+	if len(z) != v.m {
+		return 0, fmt.Errorf("%w: z has %d entries, measurement needs %d", ErrDimension, len(z), v.m)
+	}
+	nis := v.whiten(z)
+	if math.IsInf(nis, 1) {
+		return nis, fmt.Errorf("%w: z or its innovation", ErrNonFinite)
+	}
+	if !v.correctMean(c.f, c.x) {
+		return nis, fmt.Errorf("%w: corrected mean", ErrNonFinite)
+	}
+	copy(c.x, v.xnew)
+	copy(c.S, Spost)
+	v.prepared = false
+	return nis, nil
+}

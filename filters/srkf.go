@@ -2,7 +2,6 @@ package filters
 
 import (
 	"fmt"
-	"math"
 )
 
 // SREKF is the square-root extended Kalman filter in QR "array" form
@@ -146,23 +145,7 @@ func (k *SREKF) NIS(z []float64) float64 { return k.whiten(z) }
 // Update corrects the state with z and returns its NIS. On error the state
 // is unchanged.
 func (k *SREKF) Update(z []float64) (float64, error) {
-	if !k.prepared {
-		return 0, ErrNotPrepared
-	}
-	if len(z) != k.m {
-		return 0, fmt.Errorf("%w: z has %d entries, measurement needs %d", ErrDimension, len(z), k.m)
-	}
-	nis := k.whiten(z)
-	if math.IsInf(nis, 1) {
-		return nis, fmt.Errorf("%w: z or its innovation", ErrNonFinite)
-	}
-	if !k.correctMean(k.f, k.x) {
-		return nis, fmt.Errorf("%w: corrected mean", ErrNonFinite)
-	}
-	copy(k.x, k.xnew)
-	copy(k.S, k.Spost)
-	k.prepared = false
-	return nis, nil
+	return k.core.update(&k.innovation, k.Spost, z)
 }
 
 // CopyFrom makes k an exact copy of src (a *SREKF of the same dimension).

@@ -395,23 +395,7 @@ func (u *SRUKF) NIS(z []float64) float64 { return u.whiten(z) }
 // posterior square root prepared by Prepare. On error the state is
 // unchanged.
 func (u *SRUKF) Update(z []float64) (float64, error) {
-	if !u.prepared {
-		return 0, ErrNotPrepared
-	}
-	if len(z) != u.m {
-		return 0, fmt.Errorf("%w: z has %d entries, measurement needs %d", ErrDimension, len(z), u.m)
-	}
-	nis := u.whiten(z)
-	if math.IsInf(nis, 1) {
-		return nis, fmt.Errorf("%w: z or its innovation", ErrNonFinite)
-	}
-	if !u.correctMean(u.f, u.x) {
-		return nis, fmt.Errorf("%w: corrected mean", ErrNonFinite)
-	}
-	copy(u.x, u.xnew)
-	copy(u.S, u.Spost)
-	u.prepared = false
-	return nis, nil
+	return u.core.update(&u.innovation, u.Spost, z)
 }
 
 // CopyFrom makes u an exact copy of src (a *SRUKF of the same dimension and
