@@ -204,6 +204,9 @@ func New(opts Options) (*Client, error) {
 			default:
 			}
 		})
+	if bufferedScheme(u.Scheme) {
+		po.SetCustomOpenConnectionFn(openBuffered)
+	}
 	if opts.Username != "" {
 		po.SetUsername(opts.Username)
 	}
