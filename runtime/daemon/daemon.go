@@ -97,17 +97,23 @@ type Daemon struct {
 	pubSuppressed uint64
 	lat           latencies
 	healthVersion uint64 // engine.HealthState's version at the last health message
+	held          int    // rate_hz 0: scans processed since the last tracks message
+	heldSince     int64  // when the oldest of them was processed
 	out           outRing
 }
 
 // outRing holds the tracks messages handed to the MQTT client and not yet
 // complete, oldest first. The engine goroutine does not wait for each
 // broker acknowledgement (issue 7): it waits only when every slot is in
-// flight, which is the back-pressure on a slow broker. Each slot owns a
-// buffer that is never written while paho may still read it.
+// flight, which is the back-pressure on a slow broker. A slot holds the
+// buffer paho is reading; completed buffers go on a stack of spares, and
+// the pipeline takes the one freed last, so only as many buffers grow to a
+// tracks message's size as are ever in flight at once (usually one or two,
+// not outSlots: with 500 tracks a message is a few hundred kB).
 type outRing struct {
 	slots   [outSlots]outSlot
 	head, n int
+	spare   [][]byte // completed buffers, most recently freed last
 }
 
 // outSlots bounds the tracks messages in flight: enough to cover a
@@ -193,9 +199,7 @@ func New(opts Options) (*Daemon, error) {
 		events: make(chan mqtt.Event, 64),
 		lat:    latencies{pending: make([]int64, 0, 4096)},
 	}
-	for i := range d.out.slots {
-		d.out.slots[i].buf = make([]byte, 0, cap(pipe.tbuf))
-	}
+	d.out.spare = make([][]byte, 0, outSlots+1)
 	d.metrics = newMetrics(d)
 	d.lat.obs = d.metrics.latency
 	return d, nil
@@ -240,6 +244,10 @@ func (d *Daemon) clientOptions() mqtt.Options {
 	}
 	return o
 }
+
+// coalesceNs bounds how long, with rate_hz 0, processed scans wait for the
+// queue to empty before their tracks message goes out anyway.
+const coalesceNs = int64(5 * time.Millisecond)
 
 // closed is always ready: it keeps the loop draining while the queue
 // still holds messages after a bounded batch.
@@ -327,7 +335,7 @@ func (d *Daemon) stop() {
 	// what a flood adds after that is not waited for.
 	d.drain(d.queue.Cap())
 	now := time.Now()
-	if !d.pipe.PerScan() {
+	if !d.pipe.PerScan() || d.held > 0 {
 		d.advance(now.UnixNano())
 	}
 	d.publishHealth(now)
@@ -354,9 +362,20 @@ func (d *Daemon) drain(limit int) bool {
 		d.metrics.handled(d.pipe.last, time.Since(t0))
 		if err == nil {
 			d.lat.arrived(d.in.ArrivalNs)
-			if d.pipe.PerScan() {
-				d.advance(d.in.ArrivalNs)
+			if d.held == 0 {
+				// From when the scan was processed, not when it arrived:
+				// behind a backlog every arrival is already old.
+				d.heldSince = t0.UnixNano()
 			}
+			d.held++
+		}
+		// rate_hz 0: a tracks message once the queue is empty, so one per
+		// scan while the daemon keeps up. Behind a backlog, the scans
+		// processed meanwhile share one message (each would be stale by
+		// the time it went out), at least every coalesceNs.
+		if d.held > 0 && d.pipe.PerScan() && (d.queue.Len() == 0 || t0.UnixNano()-d.heldSince >= coalesceNs) {
+			d.held = 0
+			d.advance(d.in.ArrivalNs)
 		}
 		// The engine's overrun watchdog judges the step (with its output)
 		// and what is still waiting, and any messages the queue dropped.
@@ -396,9 +415,15 @@ func (d *Daemon) publishTracks(b []byte) bool {
 		d.publishFailed(kindTracks, d.cfg.Output.TracksTopic, err)
 		return false
 	}
-	// The slot is free (its publish was finished), so its buffer is ours.
-	d.pipe.tbuf, s.buf = s.buf[:0], b
-	s.pending = p
+	// paho reads b until the publish completes; the pipeline encodes the
+	// next message into the spare freed last, or a new buffer while the
+	// ring warms up.
+	s.buf, s.pending = b, p
+	if k := len(r.spare); k > 0 {
+		d.pipe.tbuf, r.spare = r.spare[k-1][:0], r.spare[:k-1]
+	} else {
+		d.pipe.tbuf = make([]byte, 0, cap(b))
+	}
 	r.n++
 	return true
 }
@@ -429,11 +454,12 @@ func (d *Daemon) finish(wait bool) {
 	if err == nil {
 		d.published++
 		d.metrics.published[kindTracks].Inc()
+		r.spare = append(r.spare, s.buf[:0])
 	} else {
+		// paho may still hold s.buf: never reuse it.
 		d.publishFailed(kindTracks, d.cfg.Output.TracksTopic, err)
-		s.buf = make([]byte, 0, cap(s.buf))
 	}
-	s.pending = mqtt.Pending{}
+	s.buf, s.pending = nil, mqtt.Pending{}
 	r.head = (r.head + 1) % len(r.slots)
 	r.n--
 }

@@ -470,12 +470,14 @@ func TestDaemonReportsQueueOverflow(t *testing.T) {
 	}
 }
 
-// With rate_hz 0 every processed scan is published without the engine
-// goroutine waiting for each acknowledgement (issue 7). A burst of scans
-// must still come out complete and in order (QoS 1 on one topic keeps
-// order, MQTT 3.1.1 §4.6), and a graceful stop must wait for every tracks
-// message in flight before "offline": everything counted as published
-// reaches the subscriber, nothing is counted as failed.
+// With rate_hz 0 tracks go out without the engine goroutine waiting for
+// each acknowledgement (issue 7). Scans that arrive one at a time get a
+// tracks message each; a burst that queues up shares messages, the last
+// of which reflects the newest scan. Either way the messages come out
+// complete and in order (QoS 1 on one topic keeps order, MQTT 3.1.1
+// §4.6), and a graceful stop waits for every tracks message in flight
+// before "offline": everything counted as published reaches the
+// subscriber, nothing is counted as failed.
 func TestDaemonPerScanPublishesInOrder(t *testing.T) {
 	for name, url := range brokers(t) {
 		t.Run(name, func(t *testing.T) {
@@ -513,15 +515,35 @@ func TestDaemonPerScanPublishesInOrder(t *testing.T) {
 				<-done
 				t.Fatal("no online status within 5 s")
 			}
-			// The burst goes out without waiting for acknowledgements, so
-			// the daemon's publishes overlap.
 			pub := newPeer(t, url, cfg.Broker.ClientID+"-sensors")
 			scene := gatesim.NewScene(cfg, time.Now().UnixNano(), 1)
-			const scans = 300
-			var toks []paho.Token
-			for seq := uint64(1); seq <= scans; seq++ {
+			// One at a time, 10 ms apart: the daemon keeps up, so nearly
+			// every scan has its own message (a stalled test machine may
+			// let two share one).
+			const paced = 30
+			var lastT int64
+			for seq := uint64(1); seq <= paced; seq++ {
 				i := int(seq) % len(cfg.Sensors)
-				toks = append(toks, pub.c.Publish(cfg.Sensors[i].Topic, 1, false, scene.Payload(i, seq, time.Now().UnixNano())))
+				lastT = time.Now().UnixNano()
+				pub.c.Publish(cfg.Sensors[i].Topic, 1, false, scene.Payload(i, seq, lastT)).WaitTimeout(5 * time.Second)
+				time.Sleep(10 * time.Millisecond)
+			}
+			deadline := time.Now().Add(5 * time.Second)
+			for d.Stats().Pipeline.TracksOut < paced && time.Now().Before(deadline) {
+				time.Sleep(10 * time.Millisecond)
+			}
+			if n := d.Stats().Pipeline.TracksOut; n < paced*9/10 {
+				t.Errorf("%d tracks messages for %d paced scans, want one each", n, paced)
+			}
+			pacedOut := d.Stats().Pipeline.TracksOut
+			// The burst goes out without waiting for acknowledgements, so
+			// the daemon's publishes overlap and scans queue up.
+			const scans = paced + 300
+			var toks []paho.Token
+			for seq := uint64(paced + 1); seq <= scans; seq++ {
+				i := int(seq) % len(cfg.Sensors)
+				lastT = time.Now().UnixNano()
+				toks = append(toks, pub.c.Publish(cfg.Sensors[i].Topic, 1, false, scene.Payload(i, seq, lastT)))
 			}
 			for _, tok := range toks {
 				tok.WaitTimeout(5 * time.Second)
@@ -529,7 +551,7 @@ func TestDaemonPerScanPublishesInOrder(t *testing.T) {
 			pub.close()
 			// Let the queue take the burst, then stop: the stop drains what
 			// is queued and waits for the publishes in flight.
-			deadline := time.Now().Add(5 * time.Second)
+			deadline = time.Now().Add(5 * time.Second)
 			for d.Stats().QueuePushed < scans && time.Now().Before(deadline) {
 				time.Sleep(10 * time.Millisecond)
 			}
@@ -542,8 +564,11 @@ func TestDaemonPerScanPublishesInOrder(t *testing.T) {
 				t.Errorf("%d publish errors", st.PublishErrors)
 			}
 			tracksOut := st.Pipeline.TracksOut
-			if tracksOut < scans/2 {
-				t.Fatalf("only %d tracks messages for %d scans; stats %+v", tracksOut, scans, st)
+			if st.Pipeline.Accepted != scans {
+				t.Fatalf("%d scans accepted, want %d; stats %+v", st.Pipeline.Accepted, scans, st)
+			}
+			if burst := tracksOut - pacedOut; burst < 1 || burst >= scans-paced {
+				t.Errorf("%d tracks messages for a burst of %d scans, want at least one and fewer than one each", burst, scans-paced)
 			}
 			// Published counts health too; every tracks message is among it.
 			if st.Published < tracksOut {
@@ -559,7 +584,7 @@ func TestDaemonPerScanPublishesInOrder(t *testing.T) {
 			watch.mu.Lock()
 			defer watch.mu.Unlock()
 			var got uint64
-			lastSeq, lastT := uint64(0), int64(0)
+			lastSeq, lastTracksT := uint64(0), int64(0)
 			for _, m := range watch.msgs {
 				if m.topic != cfg.Output.TracksTopic {
 					continue
@@ -568,15 +593,20 @@ func TestDaemonPerScanPublishesInOrder(t *testing.T) {
 				if !ok {
 					t.Fatalf("tracks message %d is not JSON: %.200s", got, m.payload)
 				}
-				if got > 0 && (tm.Seq <= lastSeq || tm.TNs < lastT) {
+				if got > 0 && (tm.Seq <= lastSeq || tm.TNs < lastTracksT) {
 					t.Fatalf("tracks message %d out of order: seq %d t_ns %d after seq %d t_ns %d",
-						got, tm.Seq, tm.TNs, lastSeq, lastT)
+						got, tm.Seq, tm.TNs, lastSeq, lastTracksT)
 				}
-				lastSeq, lastT = tm.Seq, tm.TNs
+				lastSeq, lastTracksT = tm.Seq, tm.TNs
 				got++
 			}
 			if got != tracksOut {
 				t.Errorf("subscriber got %d tracks messages, daemon encoded %d", got, tracksOut)
+			}
+			// The newest message reflects the newest scan: stamped at its
+			// measurement time (Engine.Advance with rate_hz 0).
+			if lastTracksT != lastT {
+				t.Errorf("the last tracks message is stamped %d, the newest scan %d", lastTracksT, lastT)
 			}
 		})
 	}
