@@ -45,6 +45,7 @@ type ConfigParams struct {
 	LidarMS    float64 // lidar period; 0 means 100 ms
 	RadarMS    float64 // radar period; 0 means 50 ms
 	LagMS      float64 // timing.lag_ms; 0 means 200 ms
+	Metrics    string  // metrics.listen; "" serves no metrics
 }
 
 // Config builds the bench post's configuration: a fixed post with a
@@ -91,11 +92,11 @@ tracker: {motion: cv, filter: srekf, accel_sd: 0.3, gate_prob: 0.999,
           confirm: {hits: 3, of: 4}, delete_misses: 6, max_tracks: %d}
 timing: {lag_ms: %g, clock: synced}
 output: {tracks_topic: %s, health_topic: %s, status_topic: %s, rate_hz: %g}
-metrics: {listen: ""}
+metrics: {listen: %q}
 limits: {max_payload_bytes: 262144, queue_length: %d}
 `, Vehicle, p.BrokerURL, p.ClientID, p.QoS, p.Persistent,
 		LidarName, LidarTopic, p.LidarMS, RadarName, RadarTopic, p.RadarMS,
-		p.MaxTracks, p.LagMS, TracksTopic, HealthTopic, StatusTopic, p.RateHz, p.QueueLen)
+		p.MaxTracks, p.LagMS, TracksTopic, HealthTopic, StatusTopic, p.RateHz, p.Metrics, p.QueueLen)
 	return y
 }
 

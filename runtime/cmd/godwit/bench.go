@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"os"
+	"runtime/pprof"
 	"strings"
 	"time"
 
@@ -19,9 +20,12 @@ func newBenchCmd() *cobra.Command {
 		brokerURL, only     string
 		asJSON              bool
 		filterTime, latency time.Duration
+		trial               time.Duration
 		engineSeconds, rate float64
 		detections, flood   int
 		qos                 int
+		cpuProfile          string
+		inProcess           bool
 	)
 	cmd := &cobra.Command{
 		Use:   "bench [--broker URL] [--json]",
@@ -40,25 +44,32 @@ table. Every row is measured in this run, one after the other:
   mqtt      the broker round trip of a plain paho publisher and subscriber
             (the limit) against publisher → godwit → subscriber: latency
             p50/p99 at a fixed rate, from the publish time stamped in the
-            sensor message (t_ns) to the receipt of the tracks message that
-            carries it, and the sustained rate of both under a flood
+            sensor message (t_ns) to the receipt of the first tracks message
+            that reflects it; the sustained rate, the highest paced rate
+            each path takes in full (a search of short paced trials); and
+            the rate each path moves under a flood
   process   this binary started as "godwit run": time from exec to the first
             tracks message, and resident memory with 500 live tracks
 
-The MQTT rows use an embedded broker unless --broker names a real one. The
-machine should be otherwise quiet: other load shows up in every figure.`,
+The MQTT rows use an embedded broker unless --broker names a real one; the
+godwit path runs this binary as "godwit run" in its own process, as on a
+vehicle (--in-process keeps it in the bench's). The machine should be
+otherwise quiet: other load shows up in every figure.`,
 		Example: `  godwit bench
   godwit bench --broker tcp://127.0.0.1:1883 --json > bench.json
   godwit bench --only filter,engine --filter-time 200ms`,
 		Args: usageArgs(cobra.NoArgs),
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			o := bench.Options{FilterTime: filterTime, EngineSeconds: engineSeconds, Detections: detections,
-				MQTT: bench.MQTTOptions{BrokerURL: brokerURL, Rate: rate, Latency: latency, Flood: flood, QoS: byte(qos)}}
+				MQTT: bench.MQTTOptions{BrokerURL: brokerURL, Rate: rate, Latency: latency, Flood: flood, QoS: byte(qos), Trial: trial}}
 			if qos < 0 || qos > 1 {
 				return usagef("--qos is %d, want 0 or 1", qos)
 			}
-			if filterTime < 0 || latency < 0 || engineSeconds < 0 || rate < 0 || detections < 0 || flood < 0 {
+			if filterTime < 0 || trial < 0 || latency < 0 || engineSeconds < 0 || rate < 0 || detections < 0 || flood < 0 {
 				return usagef("durations, rates and counts must not be negative")
+			}
+			if trial == 0 {
+				o.MQTT.Trial = -1 // bench.MQTTOptions' zero means the default
 			}
 			if only != "" {
 				for _, s := range strings.Split(only, ",") {
@@ -71,6 +82,9 @@ machine should be otherwise quiet: other load shows up in every figure.`,
 			}
 			if exe, err := os.Executable(); err == nil {
 				o.Executable = exe
+				if !inProcess {
+					o.MQTT.Executable = exe
+				}
 			}
 			if brokerURL == "" {
 				o.StartBroker = func() (string, func(), error) {
@@ -83,6 +97,17 @@ machine should be otherwise quiet: other load shows up in every figure.`,
 			}
 			if !asJSON {
 				o.Progress = cmd.ErrOrStderr()
+			}
+			if cpuProfile != "" {
+				fh, err := os.Create(cpuProfile)
+				if err != nil {
+					return fmt.Errorf("--cpuprofile: %w", err)
+				}
+				defer fh.Close()
+				if err := pprof.StartCPUProfile(fh); err != nil {
+					return fmt.Errorf("--cpuprofile: %w", err)
+				}
+				defer pprof.StopCPUProfile()
 			}
 			rep := bench.Run(cmd.Context(), o)
 			var err error
@@ -109,8 +134,11 @@ machine should be otherwise quiet: other load shows up in every figure.`,
 	f.IntVar(&detections, "detections", 1_000_000, "detections replayed through decode+engine+encode after warm-up")
 	f.Float64Var(&rate, "rate", 2000, "messages/s of the MQTT latency phase")
 	f.DurationVar(&latency, "latency-time", 3*time.Second, "length of the MQTT latency phase")
-	f.IntVar(&flood, "flood", 50000, "messages of the MQTT throughput phase")
+	f.IntVar(&flood, "flood", 50000, "messages of the MQTT flood phase")
+	f.DurationVar(&trial, "trial-time", time.Second, "length of each paced run of the MQTT sustained-rate search (0 skips the search)")
 	f.IntVar(&qos, "qos", 0, "MQTT QoS of both paths (0 or 1)")
+	f.BoolVar(&inProcess, "in-process", false, "run the godwit path's daemon inside the bench's process instead of as \"godwit run\"")
+	f.StringVar(&cpuProfile, "cpuprofile", "", "write a CPU profile of the whole run to this file (go tool pprof)")
 	return cmd
 }
 

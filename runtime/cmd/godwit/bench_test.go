@@ -2,6 +2,9 @@ package main
 
 import (
 	"encoding/json"
+	"os/exec"
+	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 
@@ -35,20 +38,23 @@ func TestBenchJSON(t *testing.T) {
 	}
 }
 
-// The MQTT rows on the embedded broker: both paths deliver every message of
-// the latency phase and report p50 ≤ p99.
+// The MQTT rows on the embedded broker: every path delivers every message
+// of the latency phase, and the sustained-rate search runs.
 func TestBenchMQTTEmbedded(t *testing.T) {
 	if testing.Short() {
 		t.Skip("MQTT bench skipped with -short")
 	}
-	code, out, errs := runCmd(t, nil, "bench", "--only", "mqtt", "--latency-time", "500ms", "--rate", "500", "--flood", "2000")
+	code, out, errs := runCmd(t, nil, "bench", "--only", "mqtt", "--in-process", "--latency-time", "500ms", "--rate", "500", "--flood", "2000", "--trial-time", "100ms")
 	if code != exitOK {
 		t.Fatalf("exit %d, stderr %s", code, errs)
 	}
-	if n := strings.Count(out, "250/250"); n != 2 {
-		t.Errorf("%d paths delivered 250 of 250 messages, want both:\n%s", n, out)
+	// The raw path, the godwit path (every scan reflected in a tracks
+	// message) and the raw path at the tracks messages' size.
+	if n := strings.Count(out, "250/250"); n != 3 {
+		t.Errorf("%d paths delivered 250 of 250 messages, want all 3:\n%s", n, out)
 	}
-	for _, want := range []string{"embedded tcp://", "raw paho pub → sub", "pub → godwit (rate_hz 0) → sub", "start→first msg"} {
+	for _, want := range []string{"embedded tcp://", "raw paho pub → sub", "pub → godwit (rate_hz 0) → sub", "start→first msg",
+		"sustained", "ratio", "B msgs", "godwit ran in the bench's process"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("output misses %q:\n%s", want, out)
 		}
@@ -64,6 +70,37 @@ func TestBenchBadUsage(t *testing.T) {
 	} {
 		if code, _, _ := runCmd(t, nil, args...); code != exitUsage {
 			t.Errorf("%v: exit %d, want %d", args, code, exitUsage)
+		}
+	}
+}
+
+// The built binary's bench runs the godwit path as "godwit run" in its own
+// process (the default outside tests) and reads its counters from the
+// child's /metrics.
+func TestBenchMQTTOwnProcess(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the binary")
+	}
+	bin := filepath.Join(t.TempDir(), "godwit")
+	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
+		t.Skipf("cannot build the binary here: %v\n%s", err, out)
+	}
+	out, err := exec.Command(bin, "bench", "--only", "mqtt", "--latency-time", "500ms", "--rate", "500",
+		"--flood", "2000", "--trial-time", "100ms").CombinedOutput()
+	if err != nil {
+		t.Fatalf("bench: %v\n%s", err, out)
+	}
+	s := string(out)
+	if n := strings.Count(s, "250/250"); n != 3 {
+		t.Errorf("%d paths delivered 250 of 250 messages, want all 3:\n%s", n, s)
+	}
+	// The flood's count comes from the child's Prometheus counters.
+	if m := regexp.MustCompile(`(\d+) ingested`).FindStringSubmatch(s); m == nil || m[1] == "0" {
+		t.Errorf("no messages counted as ingested by the child:\n%s", s)
+	}
+	for _, want := range []string{"godwit ran in its own process (godwit run)", "ratio"} {
+		if !strings.Contains(s, want) {
+			t.Errorf("output misses %q:\n%s", want, s)
 		}
 	}
 }
