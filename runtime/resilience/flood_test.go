@@ -12,9 +12,8 @@ import (
 	"github.com/godwit-fusion/godwit/runtime/bench"
 )
 
-// A flood far above the nominal rate (the issue asks 10× for 10 s; this
-// runs 2 s, scaled down so CI stays short, and checks the rate reached at
-// least 10×): the daemon's memory stays bounded, the oldest messages are
+// A flood far above the nominal rate for 10 s (the test checks the rate
+// reached at least 10× nominal): the daemon's memory stays bounded, the oldest messages are
 // dropped and counted, health reports the overrun (degraded, failed once
 // the queue is full), and within 5 s of catching up health is ok again
 // and output is fresh.
@@ -50,12 +49,13 @@ func TestFloodDropsOldestAndRecovers(t *testing.T) {
 	floodStart := time.Now()
 	f.period.Store(0)
 	// Live heap (after a forced collection) every 250 ms: the peak of
-	// the first and of the second second.
+	// the first and of the second half.
+	const floodFor = 10 * time.Second
 	var peak [2]uint64
-	for time.Since(floodStart) < 2*time.Second {
+	for time.Since(floodStart) < floodFor {
 		time.Sleep(250 * time.Millisecond)
 		half := 0
-		if time.Since(floodStart) > time.Second {
+		if time.Since(floodStart) > floodFor/2 {
 			half = 1
 		}
 		runtime.GC()
@@ -80,15 +80,15 @@ func TestFloodDropsOldestAndRecovers(t *testing.T) {
 
 	// Bounded: the daemon's queue holds queueLen payloads of at most
 	// max_payload_bytes (256 KiB), 16 MiB. 32 MB of growth allows for that
-	// and the clients' own buffers, and is far below what queuing 2 s of
-	// flood without bound would take (about 24 000 messages of 1.7 kB);
-	// the second second must not keep growing beyond the first (8 MB slack:
+	// and the clients' own buffers, and is far below what queuing 10 s of
+	// flood without bound would take (over 100 000 messages of 1.7 kB);
+	// the second half must not keep growing beyond the first (8 MB slack:
 	// queue slots grow once to the largest payload seen, GC timing).
 	if peak[1] > heap0+32<<20 {
 		t.Errorf("live heap grew from %.1f MB to %.1f MB during the flood", float64(heap0)/1e6, float64(peak[1])/1e6)
 	}
 	if peak[1] > peak[0]+peak[0]/4+8<<20 {
-		t.Errorf("heap kept growing: peak %.1f MB in the first second, %.1f MB in the second", float64(peak[0])/1e6, float64(peak[1])/1e6)
+		t.Errorf("heap kept growing: peak %.1f MB in the first 5 s, %.1f MB in the next", float64(peak[0])/1e6, float64(peak[1])/1e6)
 	}
 	st1 := r.d.Stats()
 	dropped := st1.QueueDropped - st0.QueueDropped
