@@ -132,6 +132,7 @@ type Engine struct {
 	maxPosVar    float64
 	birthSpeedSD float64
 	maxScans     int
+	marks        poolMarks // high-water marks of the pooled scans and snapshots
 
 	platformMoving bool
 	fixedPose      Pose
@@ -505,7 +506,7 @@ func (e *Engine) ingest(m *transport.Measurement, arrivalNs int64) error {
 	}
 	sc := e.takeScan()
 	sc.tNs, sc.sensor, sc.seq, sc.fresh = t, m.SensorIdx, m.Seq, true
-	sc.dets = sc.dets[:0]
+	sc.dets = reserve(sc.dets, len(m.Dets), &e.marks.dets)
 	for i := range m.Dets {
 		d := &m.Dets[i]
 		var sd storedDet
@@ -555,7 +556,7 @@ func (e *Engine) ingest(m *transport.Measurement, arrivalNs int64) error {
 	}
 	for i := p; i < len(e.log); i++ {
 		x := e.log[i]
-		if err := saveLean(&x.snap, &e.st, e.leanSnap, e.mkFilter); err != nil {
+		if err := saveLean(&x.snap, &e.st, e.leanSnap, e.mkFilter, &e.marks); err != nil {
 			return e.fail(err)
 		}
 		e.process(x)

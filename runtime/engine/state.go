@@ -76,10 +76,15 @@ func copyScalars(dst, src *state) {
 // whose particles and random source are its state, or a caller's own
 // filter) whole filters are copied with CopyFrom. The ego filter, always
 // the engine's SR-UKF, is always kept lean.
-func saveLean(snap, live *state, lean bool, mk func() (filters.Filter, error)) error {
-	snap.recs = append(snap.recs[:0], live.recs...)
+func saveLean(snap, live *state, lean bool, mk func() (filters.Filter, error), marks *poolMarks) error {
+	snap.recs = append(reserve(snap.recs, len(live.recs), &marks.recs), live.recs...)
 	if lean {
-		snap.xs = snap.xs[:0]
+		n := 0
+		for i := range live.recs {
+			g := live.flt[i].State()
+			n += len(g.X) + len(g.S)
+		}
+		snap.xs = reserve(snap.xs, n, &marks.xs)
 		for i := range live.recs {
 			g := live.flt[i].State()
 			snap.xs = append(snap.xs, g.X...)
@@ -190,4 +195,24 @@ func (a *scan) before(b *scan) bool {
 		return a.sensor < b.sensor
 	}
 	return a.seq < b.seq
+}
+
+// poolMarks are the engine-wide high-water marks of the slices its pooled
+// scans and snapshots hold (see reserve).
+type poolMarks struct {
+	dets, recs, xs int
+}
+
+// reserve returns s emptied, with room for n elements. Pooled scans and
+// snapshots are reused in turn, and each used to grow its slices to its
+// own need: a warm engine kept allocating, now and then, whenever one of
+// them first met a larger scan than it had held. Growing straight to the
+// engine-wide mark, plus a quarter, lets every pooled object grow about
+// once, after which steady state allocates nothing.
+func reserve[T any](s []T, n int, mark *int) []T {
+	if cap(s) >= n {
+		return s[:0]
+	}
+	*mark = max(*mark, n+n/4)
+	return make([]T, 0, *mark)
 }

@@ -56,24 +56,19 @@ type pair struct {
 }
 
 func growBool(s []bool, n int) []bool {
-	if cap(s) < n {
-		s = make([]bool, n)
-	}
-	s = s[:n]
+	s = grow(s, n)
 	clear(s)
 	return s
 }
 
-func growInt(s []int, n int) []int {
-	if cap(s) < n {
-		s = make([]int, n)
-	}
-	return s[:n]
-}
+func growInt(s []int, n int) []int { return grow(s, n) }
 
+// grow returns s with length n. A workspace that must grow takes a quarter
+// more than asked, so that a scene creeping to new highs (larger clusters,
+// more tracks) regrows it seldom rather than at every new maximum.
 func grow[T any](s []T, n int) []T {
 	if cap(s) < n {
-		s = make([]T, n)
+		s = make([]T, n, n+n/4)
 	}
 	return s[:n]
 }
