@@ -2,6 +2,7 @@ package bench
 
 import (
 	"bytes"
+	"context"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -304,5 +305,32 @@ func TestReceiverReflects(t *testing.T) {
 		if math.Abs(r.lat[i]-want[i]) > 1e-12 {
 			t.Errorf("latency %d: %g ms, want %g", i, r.lat[i], want[i])
 		}
+	}
+}
+
+// The sustained-rate search brackets the limit by doubling and then
+// bisects four times: the answer is at most the limit and within 1/16 of
+// the bracket below it, and one failed trial alone (a stall) does not end
+// the search.
+func TestSustainedRateSearch(t *testing.T) {
+	const limit = 30000.0
+	stalled := false
+	rate, trials, err := sustainedRate(context.Background(), MQTTOptions{}, func(r float64) (trialResult, error) {
+		if r == 8000 && !stalled {
+			stalled = true // one stall at 8000 msg/s
+			return trialResult{}, nil
+		}
+		return trialResult{kept: r <= limit}, nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Doubling: 4k, 8k (stall, retried), 16k, 32k (fails twice): 6
+	// trials; bisecting 16k..32k: 24k, 28k, 30k pass, 31k fails twice: 5.
+	if rate > limit || rate < limit-1000 {
+		t.Errorf("sustained %g, want within 1000 below %g", rate, limit)
+	}
+	if trials != 11 {
+		t.Errorf("%d trials, want 11", trials)
 	}
 }

@@ -56,8 +56,9 @@ type Stats struct {
 // The MQTT callback only copies each message into a bounded queue (drop
 // oldest on overflow), so a slow engine can never stall the connection.
 // The engine goroutine pops, decodes and ingests with the arrival time the
-// callback stamped, calls Advance on a ticker at output.rate_hz (or after
-// every processed scan with rate_hz 0), and publishes tracks (QoS
+// callback stamped, calls Advance on a ticker at output.rate_hz (or, with
+// rate_hz 0, whenever the queue is empty after a processed scan, so scans
+// behind a backlog share a message), and publishes tracks (QoS
 // broker.qos) and health (retained, once per HealthPeriod). The client
 // announces "online" (retained) on every connect, leaves "offline" as its
 // last will, and reconnects with capped backoff; the daemon reports each
