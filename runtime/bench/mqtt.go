@@ -31,6 +31,8 @@ type MQTTOptions struct {
 	// Executable, when set, is this binary: the godwit path then runs it as
 	// "godwit run" in its own process, as on a vehicle.
 	Executable string
+	// ChildProfile, with Executable, is passed to the child as --cpuprofile.
+	ChildProfile string
 	// Trial is the length of each paced run of the sustained-rate search;
 	// 0 means 1 s, negative skips the search.
 	Trial time.Duration
@@ -365,7 +367,7 @@ func GodwitPath(ctx context.Context, o MQTTOptions) (PathResult, error) {
 	var g godwitUnderTest
 	var own *ownProcess
 	if o.Executable != "" {
-		own, err = startOwnProcess(ctx, o.Executable, params)
+		own, err = startOwnProcess(ctx, o.Executable, params, o.ChildProfile)
 		g = own
 	} else {
 		g, err = startInProcess(ctx, params)

@@ -3,7 +3,6 @@ package main
 import (
 	"fmt"
 	"os"
-	"runtime/pprof"
 	"strings"
 	"time"
 
@@ -98,19 +97,15 @@ otherwise quiet: other load shows up in every figure.`,
 			if !asJSON {
 				o.Progress = cmd.ErrOrStderr()
 			}
-			if cpuProfile != "" {
-				fh, err := os.Create(cpuProfile)
-				if err != nil {
-					return fmt.Errorf("--cpuprofile: %w", err)
-				}
-				defer fh.Close()
-				if err := pprof.StartCPUProfile(fh); err != nil {
-					return fmt.Errorf("--cpuprofile: %w", err)
-				}
-				defer pprof.StopCPUProfile()
+			stopProfile, err := startCPUProfile(cpuProfile)
+			if err != nil {
+				return err
+			}
+			defer stopProfile()
+			if cpuProfile != "" && o.MQTT.Executable != "" {
+				o.MQTT.ChildProfile = cpuProfile + ".godwit"
 			}
 			rep := bench.Run(cmd.Context(), o)
-			var err error
 			if asJSON {
 				err = rep.WriteJSON(cmd.OutOrStdout())
 			} else {
@@ -138,7 +133,7 @@ otherwise quiet: other load shows up in every figure.`,
 	f.DurationVar(&trial, "trial-time", time.Second, "length of each paced run of the MQTT sustained-rate search (0 skips the search)")
 	f.IntVar(&qos, "qos", 0, "MQTT QoS of both paths (0 or 1)")
 	f.BoolVar(&inProcess, "in-process", false, "run the godwit path's daemon inside the bench's process instead of as \"godwit run\"")
-	f.StringVar(&cpuProfile, "cpuprofile", "", "write a CPU profile of the whole run to this file (go tool pprof)")
+	f.StringVar(&cpuProfile, "cpuprofile", "", "write a CPU profile of the bench to this file, and of the godwit path's child process to FILE.godwit (go tool pprof)")
 	return cmd
 }
 

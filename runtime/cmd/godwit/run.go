@@ -17,7 +17,7 @@ func init() { commands = append(commands, newRunCmd) }
 const embeddedLinger = 500 * time.Millisecond
 
 func newRunCmd() *cobra.Command {
-	var path, level string
+	var path, level, cpuProfile string
 	var embedded bool
 	cmd := &cobra.Command{
 		Use:   "run --config FILE [--log-level L] [--embedded-broker]",
@@ -76,6 +76,11 @@ broker.url first, for a quick try on a machine without Mosquitto.`,
 			if err != nil {
 				return usageError{err}
 			}
+			stopProfile, err := startCPUProfile(cpuProfile)
+			if err != nil {
+				return err
+			}
+			defer stopProfile()
 			if err := d.Run(cmd.Context()); err != nil {
 				return err
 			}
@@ -88,6 +93,7 @@ broker.url first, for a quick try on a machine without Mosquitto.`,
 	cmd.Flags().StringVar(&path, "config", "", "configuration file (YAML)")
 	cmd.Flags().StringVar(&level, "log-level", "info", "log level: debug, info, warn, error")
 	cmd.Flags().BoolVar(&embedded, "embedded-broker", false, "start an in-process MQTT broker on the address of broker.url")
+	cmd.Flags().StringVar(&cpuProfile, "cpuprofile", "", "write a CPU profile of the daemon to this file until it stops (go tool pprof)")
 	_ = cmd.MarkFlagRequired("config")
 	return cmd
 }
