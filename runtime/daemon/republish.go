@@ -3,6 +3,7 @@ package daemon
 import (
 	"context"
 	"io"
+	"math"
 	"strconv"
 	"time"
 
@@ -111,7 +112,8 @@ func Republish(ctx context.Context, rec io.Reader, pub Publisher, opt RepublishO
 }
 
 // retime shifts the integer t_ns of a measurement message by offset. Other
-// payloads (not an object, no integer t_ns) are left alone.
+// payloads (not an object, no integer t_ns, or a t_ns the shift would carry
+// past the int64 range) are left alone.
 func retime(p *fastjson.Parser, a *fastjson.Arena, dst, payload []byte, offset int64) ([]byte, bool) {
 	v, err := p.ParseBytes(payload)
 	if err != nil || v.Type() != fastjson.TypeObject {
@@ -122,7 +124,7 @@ func retime(p *fastjson.Parser, a *fastjson.Arena, dst, payload []byte, offset i
 		return nil, false
 	}
 	t, err := tv.Int64()
-	if err != nil {
+	if err != nil || (offset > 0 && t > math.MaxInt64-offset) || (offset < 0 && t < math.MinInt64-offset) {
 		return nil, false
 	}
 	a.Reset()
