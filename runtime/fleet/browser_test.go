@@ -2,6 +2,7 @@ package fleet
 
 import (
 	"context"
+	"encoding/json"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -102,9 +103,13 @@ func TestBrowserShowsStateChangeLive(t *testing.T) {
 	if err := chromedp.Do(ctx, chromedp.WaitVisible(css(row+`[data-state="degraded"]`))); err != nil {
 		t.Fatalf("page did not show the change: %v", err)
 	}
+	// Read in one script: the page re-renders a row on every heartbeat, so
+	// a node looked up first and read after can be gone by then ("No node
+	// with given id found").
 	text := func(sel string) string {
 		t.Helper()
-		s, err := chromedp.Run(ctx, chromedp.Text(css(sel)))
+		q, _ := json.Marshal(sel)
+		s, err := chromedp.Run(ctx, chromedp.Evaluate[string](`(document.querySelector(`+string(q)+`) || {innerText: ""}).innerText`))
 		if err != nil {
 			t.Fatalf("text of %s: %v", sel, err)
 		}
