@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"github.com/godwit-fusion/godwit/runtime/testlock"
 	"image/png"
 	"math"
 	"os"
@@ -32,6 +33,7 @@ const neesLo, neesHi = 0.5, 8.0
 // End to end over the embedded broker: a shortened campus-shuttle scene
 // (15 s at 6× real time, 2.5 s of wall time) through the real daemon over MQTT.
 func TestDemoEndToEnd(t *testing.T) {
+	testlock.Exclusive(t) // live and timed: not beside another package's flood
 	defer goleak.VerifyNone(t)
 	dir := t.TempDir()
 	res, err := Run(context.Background(), Options{Out: dir, Seconds: 15, Speed: 6})

@@ -10,6 +10,7 @@ import (
 	"go.uber.org/goleak"
 
 	"github.com/godwit-fusion/godwit/runtime/bench"
+	"github.com/godwit-fusion/godwit/runtime/testlock"
 )
 
 // A flood far above the nominal rate for 10 s (the test checks the rate
@@ -18,23 +19,25 @@ import (
 // the queue is full), and within 5 s of catching up health is ok again
 // and output is fresh.
 func TestFloodDropsOldestAndRecovers(t *testing.T) {
+	// Floods both cores for 10 s: not beside another package's live test.
+	testlock.Exclusive(t)
 	leaks := goleak.IgnoreCurrent()
 	// The broker runs in a child process: its buffers for slow clients
 	// are not godwit's memory.
 	url := childBroker(t)
 	const queueLen = 64
-	// Nominal: the feeder alternates the two sensors every 10 ms, so each
-	// has a 20 ms period and the nominal rate is 100 messages/s.
-	const nominal = 100.0
+	// Nominal: the feeder alternates the two sensors every 20 ms, so each
+	// has a 40 ms period (25 Hz) and the nominal rate is 50 messages/s.
+	const nominal = 50.0
 	// QoS 1 for godwit's output, so the broker cannot drop the health
 	// messages this test reads; the flood itself is QoS 0.
-	cfg, err := bench.Config(bench.ConfigParams{BrokerURL: url, QoS: 1, LidarMS: 20, RadarMS: 20, QueueLen: queueLen})
+	cfg, err := bench.Config(bench.ConfigParams{BrokerURL: url, QoS: 1, LidarMS: 40, RadarMS: 40, QueueLen: queueLen})
 	if err != nil {
 		t.Fatal(err)
 	}
 	r := startDaemon(t, cfg, nil)
 	k := newConsumer(t, url)
-	f := startFeeder(t, url, 0, 40, 10*time.Millisecond)
+	f := startFeeder(t, url, 0, 40, 20*time.Millisecond)
 	if !waitFor(10*time.Second, func() bool { return k.nT.Load() > 50 }) {
 		t.Fatalf("no steady output before the flood: %d tracks messages", k.nT.Load())
 	}
@@ -70,7 +73,7 @@ func TestFloodDropsOldestAndRecovers(t *testing.T) {
 	}
 	f.hold.Store(true)
 	floodEnd := time.Now()
-	f.period.Store(int64(10 * time.Millisecond))
+	f.period.Store(int64(20 * time.Millisecond))
 	rate := float64(f.sent.Load()-sent0) / floodEnd.Sub(floodStart).Seconds()
 	if rate < 10*nominal {
 		t.Fatalf("the flood reached %.0f messages/s, less than 10× the nominal %.0f", rate, nominal)

@@ -9,6 +9,7 @@ import (
 	"testing"
 
 	"github.com/godwit-fusion/godwit/runtime/bench"
+	"github.com/godwit-fusion/godwit/runtime/testlock"
 )
 
 // bench --json prints a report a machine can read; a short filter-only run
@@ -41,6 +42,7 @@ func TestBenchJSON(t *testing.T) {
 // The MQTT rows on the embedded broker: every path delivers every message
 // of the latency phase, and the sustained-rate search runs.
 func TestBenchMQTTEmbedded(t *testing.T) {
+	testlock.Exclusive(t) // floods the broker: not beside another package's live test
 	if testing.Short() {
 		t.Skip("MQTT bench skipped with -short")
 	}
@@ -78,6 +80,7 @@ func TestBenchBadUsage(t *testing.T) {
 // process (the default outside tests) and reads its counters from the
 // child's /metrics.
 func TestBenchMQTTOwnProcess(t *testing.T) {
+	testlock.Exclusive(t) // floods the broker: not beside another package's live test
 	if testing.Short() {
 		t.Skip("builds the binary")
 	}
