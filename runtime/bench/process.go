@@ -5,11 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"os"
-	"os/exec"
-	"path/filepath"
 	"strconv"
 	"strings"
-	"syscall"
 	"time"
 )
 
@@ -28,16 +25,6 @@ type ProcessResult struct {
 // memory (Linux /proc/PID/status VmRSS). It stops the process with SIGTERM.
 func ProcessRun(ctx context.Context, exe, brokerURL string, targets int, load time.Duration) (ProcessResult, error) {
 	var res ProcessResult
-	dir, err := os.MkdirTemp("", "godwit-bench-")
-	if err != nil {
-		return res, err
-	}
-	defer os.RemoveAll(dir)
-	cfgPath := filepath.Join(dir, "bench-post.yaml")
-	y := ConfigYAML(ConfigParams{BrokerURL: brokerURL, ClientID: fmt.Sprintf("godwit-bench-proc-%d", time.Now().UnixNano())})
-	if err := os.WriteFile(cfgPath, []byte(y), 0o600); err != nil {
-		return res, err
-	}
 	pub, err := connect(brokerURL, fmt.Sprintf("godwit-bench-procpub-%d", time.Now().UnixNano()))
 	if err != nil {
 		return res, err
@@ -53,34 +40,21 @@ func ProcessRun(ctx context.Context, exe, brokerURL string, targets int, load ti
 	if err := subscribe(sub, TracksTopic, 0, &rcv); err != nil {
 		return res, err
 	}
-	cmd := exec.CommandContext(ctx, exe, "run", "--config", cfgPath, "--log-level", "error")
-	cmd.Stdout, cmd.Stderr = nil, nil
 	live := NewLive(targets, 2, 1)
 	probe := NewLive(1, 0, 2)
 	start := time.Now()
-	if err := cmd.Start(); err != nil {
+	g, err := startOwnProcess(ctx, exe, ConfigParams{BrokerURL: brokerURL,
+		ClientID: fmt.Sprintf("godwit-bench-proc-%d", time.Now().UnixNano())}, "")
+	if err != nil {
 		return res, err
 	}
-	done := make(chan error, 1)
-	go func() { done <- cmd.Wait() }()
-	defer func() {
-		_ = cmd.Process.Signal(syscall.SIGTERM)
-		select {
-		case <-done:
-		case <-time.After(5 * time.Second):
-			_ = cmd.Process.Kill()
-			<-done
-		}
-	}()
+	defer g.stop()
 	for rcv.count.Load() == 0 {
 		if time.Since(start) > 10*time.Second {
 			return res, errors.New("bench: the godwit process gave no tracks message within 10 s")
 		}
-		select {
-		case err := <-done:
-			done <- err
+		if err, gone := g.exited(); gone {
 			return res, fmt.Errorf("bench: the godwit process exited early: %v", err)
-		default:
 		}
 		b, err := probe.Next(false, time.Now().UnixNano())
 		if err != nil {
@@ -111,7 +85,7 @@ func ProcessRun(ctx context.Context, exe, brokerURL string, targets int, load ti
 	}
 	time.Sleep(200 * time.Millisecond)
 	res.LiveTracks = rcv.lastTracks()
-	res.RSSBytes = procRSS(cmd.Process.Pid)
+	res.RSSBytes = procRSS(g.cmd.Process.Pid)
 	return res, nil
 }
 

@@ -78,7 +78,7 @@ func TestBenchBadUsage(t *testing.T) {
 
 // The built binary's bench runs the godwit path as "godwit run" in its own
 // process (the default outside tests) and reads its counters from the
-// child's /metrics.
+// child's /metrics; the process row starts it the same way.
 func TestBenchMQTTOwnProcess(t *testing.T) {
 	testlock.Exclusive(t) // floods the broker: not beside another package's live test
 	if testing.Short() {
@@ -88,7 +88,7 @@ func TestBenchMQTTOwnProcess(t *testing.T) {
 	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
 		t.Skipf("cannot build the binary here: %v\n%s", err, out)
 	}
-	out, err := exec.Command(bin, "bench", "--only", "mqtt", "--latency-time", "500ms", "--rate", "500",
+	out, err := exec.Command(bin, "bench", "--only", "mqtt,process", "--latency-time", "500ms", "--rate", "500",
 		"--flood", "2000", "--trial-time", "100ms").CombinedOutput()
 	if err != nil {
 		t.Fatalf("bench: %v\n%s", err, out)
@@ -101,7 +101,7 @@ func TestBenchMQTTOwnProcess(t *testing.T) {
 	if m := regexp.MustCompile(`(\d+) ingested`).FindStringSubmatch(s); m == nil || m[1] == "0" {
 		t.Errorf("no messages counted as ingested by the child:\n%s", s)
 	}
-	for _, want := range []string{"godwit ran in its own process (godwit run)", "ratio"} {
+	for _, want := range []string{"godwit ran in its own process (godwit run)", "ratio", "godwit run: start and memory", "RSS"} {
 		if !strings.Contains(s, want) {
 			t.Errorf("output misses %q:\n%s", want, s)
 		}
