@@ -2,7 +2,6 @@ package bench
 
 import (
 	"bytes"
-	"context"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -315,7 +314,7 @@ func TestReceiverReflects(t *testing.T) {
 func TestSustainedRateSearch(t *testing.T) {
 	const limit = 30000.0
 	stalled := false
-	rate, trials, err := sustainedRate(context.Background(), MQTTOptions{}, func(r float64) (trialResult, error) {
+	rate, trials, err := sustainedRate(func(r float64) (trialResult, error) {
 		if r == 8000 && !stalled {
 			stalled = true // one stall at 8000 msg/s
 			return trialResult{}, nil

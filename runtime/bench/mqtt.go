@@ -326,7 +326,7 @@ func RawPath(ctx context.Context, o MQTTOptions) (PathResult, error) {
 		res.RatePerSec = float64(res.FloodReceived) / el.Seconds()
 	}
 	if o.Trial > 0 {
-		res.Sustained, res.Trials, err = sustainedRate(ctx, o, func(rate float64) (trialResult, error) {
+		res.Sustained, res.Trials, err = sustainedRate(func(rate float64) (trialResult, error) {
 			return trial(ctx, pub, topic, sp, rate, o.Trial, rcv.count.Load)
 		})
 	}
@@ -450,7 +450,7 @@ func GodwitPath(ctx context.Context, o MQTTOptions) (PathResult, error) {
 		res.RatePerSec = float64(res.FloodIngested) / el.Seconds()
 	}
 	if o.Trial > 0 {
-		res.Sustained, res.Trials, err = sustainedRate(ctx, o, func(rate float64) (trialResult, error) {
+		res.Sustained, res.Trials, err = sustainedRate(func(rate float64) (trialResult, error) {
 			// Start each trial with the queue drained.
 			settle(taken, math.MaxInt64, 100*time.Millisecond)
 			return trial(ctx, pub, LidarTopic, sp, rate, o.Trial, taken)
@@ -580,26 +580,27 @@ func trial(ctx context.Context, pub paho.Client, topic string, sp *scanPayload, 
 // (trial): doubling from 4000 msg/s until a rate fails twice in a row,
 // then four bisections, so the answer is within about 6 % below the true
 // limit. It returns the rate and the number of trials.
-func sustainedRate(ctx context.Context, o MQTTOptions, try func(rate float64) (trialResult, error)) (float64, int, error) {
+func sustainedRate(try func(rate float64) (trialResult, error)) (float64, int, error) {
 	lo, hi := 0.0, 0.0
 	trials := 0
 	// A rate fails only if two trials in a row fail: one stall of the
 	// machine or the broker must not end the search.
-	run := func(rate float64) (trialResult, error) {
-		res, err := try(rate)
-		if err != nil || res.kept {
-			return res, err
+	kept := func(rate float64) (bool, error) {
+		for i := 0; i < 2; i++ {
+			trials++
+			res, err := try(rate)
+			if err != nil || res.kept {
+				return res.kept, err
+			}
 		}
-		trials++
-		return try(rate)
+		return false, nil
 	}
 	for r := 4000.0; r <= 1e6; r *= 2 {
-		res, err := run(r)
-		trials++
+		ok, err := kept(r)
 		if err != nil {
 			return 0, trials, err
 		}
-		if !res.kept {
+		if !ok {
 			hi = r
 			break
 		}
@@ -610,12 +611,11 @@ func sustainedRate(ctx context.Context, o MQTTOptions, try func(rate float64) (t
 	}
 	for i := 0; i < 4; i++ {
 		mid := (lo + hi) / 2
-		res, err := run(mid)
-		trials++
+		ok, err := kept(mid)
 		if err != nil {
 			return lo, trials, err
 		}
-		if res.kept {
+		if ok {
 			lo = mid
 		} else {
 			hi = mid
