@@ -53,11 +53,13 @@ func (h *authHook) OnACLCheck(*mochi.Client, string, bool) bool { return true }
 
 // Broker is a running embedded broker.
 type Broker struct {
-	srv    *mochi.Server
-	addr   string
-	url    string
-	wsURL  string
-	closed sync.Once
+	srv   *mochi.Server
+	addr  string
+	url   string
+	wsURL string
+	// listenerIDs are the ids of the listeners added, for Close.
+	listenerIDs []string
+	closed      sync.Once
 }
 
 // Start starts a broker and returns once it accepts connections. Every
@@ -83,7 +85,7 @@ func Start(cfg Config) (*Broker, error) {
 		srv.Close()
 		return nil, err
 	}
-	b := &Broker{srv: srv, addr: tcp.Address()}
+	b := &Broker{srv: srv, addr: tcp.Address(), listenerIDs: []string{tcp.ID()}}
 	scheme := "tcp://"
 	if cfg.TLS != nil {
 		scheme = "ssl://"
@@ -100,6 +102,7 @@ func Start(cfg Config) (*Broker, error) {
 			srv.Close()
 			return nil, err
 		}
+		b.listenerIDs = append(b.listenerIDs, ws.ID())
 		scheme = "ws://"
 		if cfg.TLS != nil {
 			scheme = "wss://"
@@ -168,6 +171,29 @@ var ErrClosed = errors.New("broker: already closed")
 // broker's goroutines to finish.
 func (b *Broker) Close() error {
 	err := ErrClosed
-	b.closed.Do(func() { err = b.srv.Close() })
+	b.closed.Do(func() {
+		// mochi v2.7.9's own shutdown lists a listener's clients under a
+		// nested read lock (Clients.GetByListener calls Len while holding
+		// RLock). A client leaving at that moment queues a writer between
+		// the two read locks, and Go's RWMutex then blocks both for good:
+		// seen in CI as a Server.Close hung for 30 min. So the listeners
+		// and their clients are stopped here first, under one read lock at
+		// a time, and taken out of the map, leaving Server.Close none.
+		b.srv.Listeners.CloseAll(b.disconnectClientsOf)
+		for _, id := range b.listenerIDs {
+			b.srv.Listeners.Delete(id)
+		}
+		err = b.srv.Close()
+	})
 	return err
+}
+
+// disconnectClientsOf sends a server-shutting-down DISCONNECT to every open
+// client of one listener and drops its connection.
+func (b *Broker) disconnectClientsOf(listenerID string) {
+	for _, cl := range b.srv.Clients.GetAll() {
+		if cl.Net.Listener == listenerID && !cl.Closed() {
+			_ = b.srv.DisconnectClient(cl, packets.ErrServerShuttingDown)
+		}
+	}
 }
