@@ -16,7 +16,12 @@ import (
 // they call t.Parallel; the lock is for tests in different packages.
 func Exclusive(t testing.TB) {
 	t.Helper()
-	path := filepath.Join(os.TempDir(), "godwit-heavy-tests.lock")
+	exclusiveAt(t, filepath.Join(os.TempDir(), "godwit-heavy-tests.lock"))
+}
+
+// exclusiveAt is Exclusive on the lock file at path.
+func exclusiveAt(t testing.TB, path string) {
+	t.Helper()
 	f, err := os.OpenFile(path, os.O_CREATE|os.O_RDWR, 0o666)
 	if err != nil {
 		t.Logf("testlock: %v; running without the lock", err)

@@ -8,17 +8,19 @@ import (
 )
 
 // While one process holds the lock, another's Exclusive waits until it is
-// released.
+// released. The test uses a lock file of its own: the shared one may be held
+// for many seconds by a heavy test of another package running meanwhile.
 func TestExclusiveWaitsForTheHolder(t *testing.T) {
-	if os.Getenv("TESTLOCK_HOLD") != "" {
-		Exclusive(t)
-		os.WriteFile(os.Getenv("TESTLOCK_HOLD"), []byte("held"), 0o644)
+	if flag := os.Getenv("TESTLOCK_HOLD"); flag != "" {
+		exclusiveAt(t, os.Getenv("TESTLOCK_FILE"))
+		os.WriteFile(flag, []byte("held"), 0o644)
 		time.Sleep(500 * time.Millisecond)
 		return
 	}
-	flag := t.TempDir() + "/held"
+	dir := t.TempDir()
+	flag, lockFile := dir+"/held", dir+"/test.lock"
 	cmd := exec.Command(os.Args[0], "-test.run", "^TestExclusiveWaitsForTheHolder$")
-	cmd.Env = append(os.Environ(), "TESTLOCK_HOLD="+flag)
+	cmd.Env = append(os.Environ(), "TESTLOCK_HOLD="+flag, "TESTLOCK_FILE="+lockFile)
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}
@@ -34,7 +36,7 @@ func TestExclusiveWaitsForTheHolder(t *testing.T) {
 	t0 := time.Now()
 	done := make(chan struct{})
 	go func() {
-		t.Run("waiter", func(t *testing.T) { Exclusive(t) })
+		t.Run("waiter", func(t *testing.T) { exclusiveAt(t, lockFile) })
 		close(done)
 	}()
 	<-done
