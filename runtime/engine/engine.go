@@ -92,9 +92,14 @@ type sensorRT struct {
 	messages, detections, rejected, lateDropped, lost uint64
 	lastSeq                                           uint64
 	haveSeq                                           bool
-	lastArrival                                       int64
-	haveArrival                                       bool
-	meanGapNs                                         float64
+	// Sequence numbers skipped by a newer message, oldest first. They are
+	// lost only if still missing lag_ms later: a message overtaken on the
+	// way is not lost.
+	pending     [maxPendingSeqs]pendingSeq
+	nPending    int
+	lastArrival int64
+	haveArrival bool
+	meanGapNs   float64
 
 	maxAgeNs float64 // sensor_late above this age at arrival; 0: not judged
 	watch    [nSensorWatches]watch
@@ -112,6 +117,17 @@ type sensorRT struct {
 }
 
 const nisWindow = 64
+
+// maxPendingSeqs bounds the skipped sequence numbers a sensor holds open at
+// once; beyond it the oldest are judged lost at once.
+const maxPendingSeqs = 32
+
+// pendingSeq is a sequence number not yet seen although a newer one was,
+// and the arrival-clock time from which it counts as lost.
+type pendingSeq struct {
+	seq   uint64
+	dueNs int64
+}
 
 // Engine is the fusion core. Create it with New; it is not safe for
 // concurrent use (the daemon drives it from one goroutine).
@@ -653,10 +669,9 @@ func (e *Engine) noteArrival(s *sensorRT, m *transport.Measurement, arrivalNs in
 	if s.haveSeq {
 		switch {
 		case m.Seq > s.lastSeq+1:
-			e.noteCount(&s.watch[wLost], m.Seq-s.lastSeq-1, arrivalNs)
-			s.lost += m.Seq - s.lastSeq - 1
-		case m.Seq < s.lastSeq && s.lost > 0:
-			s.lost-- // counted as lost, then arrived after all
+			e.skipSeqs(s, s.lastSeq+1, m.Seq-1, arrivalNs)
+		case m.Seq < s.lastSeq:
+			s.arrivedLate(m.Seq)
 		}
 	}
 	if !s.haveSeq || m.Seq > s.lastSeq {
@@ -673,6 +688,66 @@ func (e *Engine) noteArrival(s *sensorRT, m *transport.Measurement, arrivalNs in
 	if !s.haveArrival || arrivalNs > s.lastArrival {
 		s.lastArrival, s.haveArrival = arrivalNs, true
 	}
+}
+
+// skipSeqs holds the sequence numbers lo..hi open: a newer message came
+// first. Each is lost if it has not arrived lag_ms after arrivalNs. Only
+// the newest maxPendingSeqs are held; older ones are lost at once (a gap
+// that wide is loss, not reordering).
+func (e *Engine) skipSeqs(s *sensorRT, lo, hi uint64, arrivalNs int64) {
+	if n := hi - lo + 1; n > maxPendingSeqs {
+		e.loseSeqs(s, n-maxPendingSeqs, arrivalNs)
+		lo = hi - maxPendingSeqs + 1
+	}
+	due := arrivalNs + e.lagNs
+	if s.nPending > 0 {
+		due = max(due, s.pending[s.nPending-1].dueNs) // keep the queue in due order
+	}
+	for q := lo; ; q++ {
+		if s.nPending == maxPendingSeqs {
+			e.loseSeqs(s, 1, arrivalNs)
+			copy(s.pending[:], s.pending[1:])
+			s.nPending--
+		}
+		s.pending[s.nPending] = pendingSeq{seq: q, dueNs: due}
+		s.nPending++
+		if q == hi {
+			break
+		}
+	}
+}
+
+// arrivedLate takes a sequence number older than the newest seen off the
+// open list: it was overtaken, not lost. One judged lost already stays
+// counted (it came later than lag_ms), as does a repeat.
+func (s *sensorRT) arrivedLate(seq uint64) {
+	for i := 0; i < s.nPending; i++ {
+		if s.pending[i].seq == seq {
+			copy(s.pending[i:], s.pending[i+1:s.nPending])
+			s.nPending--
+			return
+		}
+	}
+}
+
+// settleSeqs judges lost the open sequence numbers due by now, or all of
+// them when all is set (the input has ended).
+func (e *Engine) settleSeqs(s *sensorRT, now int64, all bool) {
+	k := 0
+	for ; k < s.nPending && (all || s.pending[k].dueNs <= now); k++ {
+		e.loseSeqs(s, 1, min(s.pending[k].dueNs, now))
+	}
+	if k == 0 {
+		return
+	}
+	copy(s.pending[:], s.pending[k:s.nPending])
+	s.nPending -= k
+}
+
+// loseSeqs counts n sequence numbers lost at time at.
+func (e *Engine) loseSeqs(s *sensorRT, n uint64, at int64) {
+	e.noteCount(&s.watch[wLost], n, at)
+	s.lost += n
 }
 
 // noteOffset updates the clock offset estimate with an accepted message.

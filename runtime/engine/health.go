@@ -395,6 +395,7 @@ func (e *Engine) evaluate(now int64) {
 	}
 	p := &e.hp
 	for _, s := range e.sensors {
+		e.settleSeqs(s, now, false)
 		if thr := e.silentNs(s); thr > 0 {
 			ref := e.hStart
 			if s.haveArrival {

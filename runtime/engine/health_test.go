@@ -320,9 +320,12 @@ func TestWatchSensorLate(t *testing.T) {
 	}
 }
 
-// Sequence gaps: every fifth number skipped for 2 s.
+// Sequence gaps: every fifth number skipped for 2 s. A skipped number is
+// lost once it is still missing lag_ms (300 ms) after the newer one came.
 func TestWatchMessagesLost(t *testing.T) {
-	r := newHzRun(t, hzConfig(), Options{})
+	cfg := hzConfig()
+	lag := int64(cfg.Timing.LagMS * 1e6)
+	r := newHzRun(t, cfg, Options{})
 	r.steady(1, 0, 8000e6, 50e6)
 	var first, last int64 = -1, -1
 	lost := 0
@@ -335,19 +338,44 @@ func TestWatchMessagesLost(t *testing.T) {
 		a := r.scan(0, rel, 0.2, true, 5e6)
 		if gap {
 			if first < 0 {
-				first = a.at - t0
+				first = a.at - t0 + lag
 			}
-			last = a.at - t0
+			last = a.at - t0 + lag
 		}
 	}
 	r.play(8000e6)
 	a := r.once("messages_lost/mast_lidar", first, last+hzHold)
-	// Gaps at 1005 and 1505 ms; the alert is first seen at the 1510 ms tick.
+	// Lost at 1305 and 1805 ms; the alert is first seen at the 1810 ms tick.
 	if a.Detail != "2 sequence number(s) missing since this alert began" {
 		t.Errorf("detail at the raise: %q", a.Detail)
 	}
 	if got := r.history[len(r.history)-1].Sensors[0].Lost; got != uint64(lost) {
 		t.Errorf("lost %d, want %d", got, lost)
+	}
+}
+
+// Scans overtaken on the way: every fifth one arrives 150 ms after its
+// successor, inside the 300 ms lag window. Nothing is lost and no alert is
+// raised (the lag window exists for such arrivals); every scan is used.
+func TestReorderedScansAreNotLost(t *testing.T) {
+	r := newHzRun(t, hzConfig(), Options{})
+	r.steady(1, 0, 6000e6, 50e6)
+	for rel := int64(0); rel < 6000e6; rel += hzPeriod {
+		a := r.scan(0, rel, 0.2, true, 5e6)
+		if (rel/hzPeriod)%5 == 0 {
+			a.at += hzPeriod + 150e6
+		}
+	}
+	r.play(6000e6)
+	if r.e.Counters().Rewinds == 0 {
+		t.Fatal("no scan was overtaken: the test did not reorder")
+	}
+	if n := len(r.raised["messages_lost/mast_lidar"]); n != 0 {
+		t.Errorf("messages_lost raised %d time(s) for overtaken scans", n)
+	}
+	last := r.history[len(r.history)-1].Sensors[0]
+	if last.Lost != 0 || last.LateDropped != 0 {
+		t.Errorf("sensor health %+v: want nothing lost or dropped", last)
 	}
 }
 

@@ -379,13 +379,19 @@ func TestHealthCounts(t *testing.T) {
 	e.Reject(1, "bad_json")
 	e.Ingest(xyMsg(0, 10, t0, [2]float64{10, 5}), t0+1e9) // 900 ms late, window 300 ms
 	var h transport.HealthMsg
+	// 3 and 4 (skipped at 500 ms) are lost from 800 ms; 7 and 8 (skipped at
+	// 900 ms) only from 1200 ms: until then they may still come.
 	e.Health(t0+1e9+5e7, &h)
+	if got := h.Sensors[0].Lost; got != 2 {
+		t.Fatalf("lost %d at 1050 ms, want 2", got)
+	}
+	e.Health(t0+1.2e9, &h)
 	s0, s1 := h.Sensors[0], h.Sensors[1]
 	if s0.Lost != 4 || s0.LateDropped != 1 || s1.Rejected != 1 || s0.Rejected != 0 {
 		t.Fatalf("sensor health %+v %+v", s0, s1)
 	}
-	if math.Abs(s0.AgeMS-50) > 1e-9 {
-		t.Errorf("age %v ms, want 50", s0.AgeMS)
+	if math.Abs(s0.AgeMS-200) > 1e-9 {
+		t.Errorf("age %v ms, want 200", s0.AgeMS)
 	}
 	codes := map[string]bool{}
 	for _, a := range h.Alerts {
@@ -393,6 +399,34 @@ func TestHealthCounts(t *testing.T) {
 	}
 	if !codes["messages_lost/mast_lidar"] || !codes["late_dropped/mast_lidar"] || h.Counters.LateDropped != 1 {
 		t.Fatalf("alerts %+v counters %+v", h.Alerts, h.Counters)
+	}
+}
+
+// TestSkippedSeqsAtTheEdges: a jump of 2⁴⁰ sequence numbers is counted in
+// bounded work and space, and numbers still missing when the input ends
+// (Flush) count as lost at once.
+func TestSkippedSeqsAtTheEdges(t *testing.T) {
+	e := mustNew(t, baseConfig(xySensor("mast_lidar", 0, 0, 0, 0.2)))
+	e.Ingest(xyMsg(0, 1, t0, [2]float64{10, 5}), t0)
+	e.Ingest(xyMsg(0, 1<<40, t0+1e8, [2]float64{10, 5}), t0+1e8)
+	var h transport.HealthMsg
+	e.Health(t0+1e8+1, &h)
+	if got, want := h.Sensors[0].Lost, uint64(1<<40-2-maxPendingSeqs); got != want {
+		t.Errorf("lost %d right after the jump, want %d (all but the newest %d held open)", got, want, maxPendingSeqs)
+	}
+	e.Health(t0+5e8, &h)
+	if got, want := h.Sensors[0].Lost, uint64(1<<40-2); got != want {
+		t.Errorf("lost %d after lag_ms, want %d", got, want)
+	}
+
+	e = mustNew(t, baseConfig(xySensor("mast_lidar", 0, 0, 0, 0.2)))
+	e.Ingest(xyMsg(0, 1, t0, [2]float64{10, 5}), t0)
+	e.Ingest(xyMsg(0, 4, t0+1e8, [2]float64{10, 5}), t0+1e8)
+	var out transport.TracksMsg
+	e.FlushAt(t0+1e8, &out)
+	e.Health(t0+1e8, &h)
+	if got := h.Sensors[0].Lost; got != 2 {
+		t.Errorf("lost %d after the end of input, want 2", got)
 	}
 }
 

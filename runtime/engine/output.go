@@ -48,9 +48,11 @@ func (e *Engine) Advance(tNs int64, out *transport.TracksMsg) bool {
 
 // Flush is the end of input: every buffered measurement is already
 // processed (late ones rewind at once), so it writes one final tracks
-// message stamped at the latest measurement time seen. It reports false
+// message stamped at the latest measurement time seen. Sequence numbers
+// still missing will not come now: they count as lost. It reports false
 // when nothing was ever processed.
 func (e *Engine) Flush(out *transport.TracksMsg) bool {
+	e.endOfInput()
 	if !e.st.hasTime {
 		return false
 	}
@@ -66,11 +68,19 @@ func (e *Engine) Flush(out *transport.TracksMsg) bool {
 // never predicted backwards. It reports false when nothing was ever
 // processed.
 func (e *Engine) FlushAt(tNs int64, out *transport.TracksMsg) bool {
+	e.endOfInput()
 	if !e.st.hasTime {
 		return false
 	}
 	e.emit(max(tNs, e.st.timeNs), out)
 	return true
+}
+
+// endOfInput judges lost every sequence number still missing.
+func (e *Engine) endOfInput() {
+	for _, s := range e.sensors {
+		e.settleSeqs(s, e.hNow, true)
+	}
 }
 
 func floorDiv(a, b int64) int64 {
