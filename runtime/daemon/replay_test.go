@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"github.com/godwit-fusion/godwit/configs"
+	"github.com/godwit-fusion/godwit/examples/scenario"
 	"github.com/godwit-fusion/godwit/runtime/daemon/gatesim"
 	"github.com/godwit-fusion/godwit/transport"
 )
@@ -204,5 +205,61 @@ func TestReplayBadRecording(t *testing.T) {
 	_, err := Replay(context.Background(), cfg, strings.NewReader(`{"godwit_recording":9,"created":"x"}`+"\n"), ReplayOutput{}, ReplayOptions{})
 	if !errors.Is(err, transport.ErrRecordingVersion) {
 		t.Fatalf("a recording of an unknown version: error %v", err)
+	}
+}
+
+// TestReplayCountsWhatTheSceneLost: the simulator knows which messages it
+// never delivered (the lidar's 1 % loss, the GNSS dropout); the health
+// report's lost counts must add up to exactly that, while the radar and the
+// camera, whose scans are only reordered by jitter, lose nothing and raise
+// no messages_lost.
+func TestReplayCountsWhatTheSceneLost(t *testing.T) {
+	sc, err := scenario.Open("campus-shuttle")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rec, truth bytes.Buffer
+	st, err := sc.Write(&rec, &truth, scenario.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if st.Lost == 0 || st.OutOfOrder == 0 {
+		t.Fatalf("scene stats %+v: the test needs both losses and reordering", st)
+	}
+	_, health, _ := replayBytes(t, sc.Config, rec.Bytes())
+	lines := bytes.Split(bytes.TrimSpace(health), []byte("\n"))
+	var last struct {
+		Sensors map[string]struct {
+			Lost uint64 `json:"lost"`
+		} `json:"sensors"`
+	}
+	if err := json.Unmarshal(lines[len(lines)-1], &last); err != nil {
+		t.Fatal(err)
+	}
+	var total uint64
+	for name, s := range last.Sensors {
+		total += s.Lost
+		if (name == "front_radar" || name == "front_camera") && s.Lost != 0 {
+			t.Errorf("%s: %d lost, but the scene only reorders its scans", name, s.Lost)
+		}
+	}
+	if total != uint64(st.Lost) {
+		t.Errorf("health counts %d lost in all, the scene lost %d (%+v)", total, st.Lost, last.Sensors)
+	}
+	for _, line := range lines {
+		var h struct {
+			Alerts []struct {
+				Code   string `json:"code"`
+				Sensor string `json:"sensor"`
+			} `json:"alerts"`
+		}
+		if err := json.Unmarshal(line, &h); err != nil {
+			t.Fatal(err)
+		}
+		for _, a := range h.Alerts {
+			if a.Code == "messages_lost" && (a.Sensor == "front_radar" || a.Sensor == "front_camera") {
+				t.Fatalf("messages_lost raised for %s, whose scans are only reordered: %+v", a.Sensor, a)
+			}
+		}
 	}
 }
