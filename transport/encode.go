@@ -31,6 +31,51 @@ func (w *jsonWriter) float(f float64) {
 	w.b = strconv.AppendFloat(w.b, f, 'g', -1, 64)
 }
 
+// memoWriter is a jsonWriter that writes a float it has just written by
+// copying the earlier text. A tracks message repeats most of its numbers bit
+// for bit (pos is the head of state, pos_cov a block of state_cov, and
+// state_cov is symmetric): 16 of each track's 38 floats, whose formatting is
+// the encoder's main cost. Equal bits give equal shortest text, so the
+// output is the same byte for byte.
+type memoWriter struct {
+	jsonWriter
+	off  bool // format every float (the tests' reference)
+	memo [64]struct {
+		bits       uint64
+		start, end int32 // the text in b; end 0: empty slot
+	}
+}
+
+func (w *memoWriter) float(f float64) {
+	if w.off || math.IsNaN(f) || math.IsInf(f, 0) {
+		w.jsonWriter.float(f)
+		return
+	}
+	bits := math.Float64bits(f)
+	// Multiplicative hash (Knuth's golden-ratio constant), top 6 bits.
+	e := &w.memo[(bits*0x9E3779B97F4A7C15)>>58]
+	if e.end > 0 && e.bits == bits {
+		w.b = append(w.b, w.b[e.start:e.end]...)
+		return
+	}
+	start := len(w.b)
+	w.jsonWriter.float(f)
+	if len(w.b) <= math.MaxInt32 {
+		e.bits, e.start, e.end = bits, int32(start), int32(len(w.b))
+	}
+}
+
+func (w *memoWriter) floats(fs []float64) {
+	w.b = append(w.b, '[')
+	for i, f := range fs {
+		if i > 0 {
+			w.b = append(w.b, ',')
+		}
+		w.float(f)
+	}
+	w.b = append(w.b, ']')
+}
+
 func (w *jsonWriter) floats(fs []float64) {
 	w.b = append(w.b, '[')
 	for i, f := range fs {
@@ -156,7 +201,11 @@ func AppendMeasurement(dst []byte, m *Measurement) ([]byte, error) {
 // when empty and ego when nil. The error is ErrNonFinite or nil; the bytes
 // are valid JSON either way.
 func AppendTracks(dst []byte, m *TracksMsg) ([]byte, error) {
-	w := jsonWriter{b: dst}
+	return appendTracks(dst, m, true)
+}
+
+func appendTracks(dst []byte, m *TracksMsg, memo bool) ([]byte, error) {
+	w := memoWriter{jsonWriter: jsonWriter{b: dst}, off: !memo}
 	w.raw(`{"v":1,"vehicle":`)
 	w.str(m.Vehicle)
 	w.raw(`,"seq":`)
