@@ -178,8 +178,13 @@ func (b *Broker) Close() error {
 		// the two read locks, and Go's RWMutex then blocks both for good:
 		// seen in CI as a Server.Close hung for 30 min. So the listeners
 		// and their clients are stopped here first, under one read lock at
-		// a time, and taken out of the map, leaving Server.Close none.
-		b.srv.Listeners.CloseAll(b.disconnectClientsOf)
+		// a time, and taken out of the map, leaving Server.Close none. The
+		// listeners stop accepting first, so that no client arrives after
+		// the others were sent away (mochi's order is the other way round).
+		for _, id := range b.listenerIDs {
+			b.srv.Listeners.Close(id, func(string) {})
+		}
+		b.disconnectAll()
 		for _, id := range b.listenerIDs {
 			b.srv.Listeners.Delete(id)
 		}
@@ -188,11 +193,11 @@ func (b *Broker) Close() error {
 	return err
 }
 
-// disconnectClientsOf sends a server-shutting-down DISCONNECT to every open
-// client of one listener and drops its connection.
-func (b *Broker) disconnectClientsOf(listenerID string) {
+// disconnectAll sends a server-shutting-down DISCONNECT to every open
+// network client and drops its connection.
+func (b *Broker) disconnectAll() {
 	for _, cl := range b.srv.Clients.GetAll() {
-		if cl.Net.Listener == listenerID && !cl.Closed() {
+		if !cl.Net.Inline && !cl.Closed() {
 			_ = b.srv.DisconnectClient(cl, packets.ErrServerShuttingDown)
 		}
 	}
